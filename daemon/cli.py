@@ -1,0 +1,58 @@
+"""The `poise` command line: one sub-command per module in daemon/commands/.
+
+Each command module defines ``NAME``, ``HELP``, ``add_arguments(parser)`` and
+``run(args) -> int``. Modules import their heavy dependencies inside ``run`` so
+that `poise --help` stays fast. Errors meant for the operator are raised as
+:class:`daemon.errors.OperatorError` (or ConfigError) and printed as one line
+with exit status 2, never as a traceback.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import pkgutil
+import sys
+from types import ModuleType
+
+import daemon.commands
+from daemon.config import ConfigError
+from daemon.errors import OperatorError
+
+
+def _command_modules() -> list[ModuleType]:
+    names = sorted(m.name for m in pkgutil.iter_modules(daemon.commands.__path__) if not m.name.startswith("_"))
+    return [importlib.import_module(f"daemon.commands.{name}") for name in names]
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="poise",
+        description="Supervisor for motorised cart-and-pendulum rigs. "
+        "A hardware e-stop that cuts motor power is mandatory; software stops are no substitute.",
+    )
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
+    for module in _command_modules():
+        command = sub.add_parser(module.NAME, help=module.HELP, description=module.HELP)
+        module.add_arguments(command)
+        command.set_defaults(_run=module.run)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = build_parser().parse_args(argv)
+    try:
+        return args._run(args)
+    except ConfigError as exc:
+        for problem in exc.problems:
+            print(f"poise: {exc.source}: {problem}", file=sys.stderr)
+        return 2
+    except OperatorError as exc:
+        print(f"poise: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

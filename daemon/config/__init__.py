@@ -1,0 +1,105 @@
+"""Rig configuration: TOML files validated by pydantic models.
+
+``load_config(path)`` returns a frozen :class:`PoiseConfig` or raises
+:class:`ConfigError` whose ``problems`` are one line each, naming the field path
+(``cart.mass_kg``) and what is allowed there.
+"""
+
+from __future__ import annotations
+
+import tomllib
+from importlib import resources
+from pathlib import Path
+
+from pydantic import Field, ValidationError
+
+from daemon.config.base import Section
+from daemon.config.control import (
+    BalanceSettings,
+    CatchSettings,
+    EstimatorSettings,
+    HomingSettings,
+    SwingUpSettings,
+)
+from daemon.config.rig import (
+    CartSettings,
+    DriveSettings,
+    EncoderSettings,
+    PendulumSettings,
+    RigIdentity,
+    SamplingSettings,
+    TrackSettings,
+)
+from daemon.config.safety import InterlockSettings, StopSettings
+from daemon.config.service import ApiSettings, RecordingSettings
+
+__all__ = ["PoiseConfig", "ConfigError", "load_config", "demo_config_path", "parse_config"]
+
+
+class PoiseConfig(Section):
+    rig: RigIdentity
+    track: TrackSettings
+    cart: CartSettings
+    pendulum: PendulumSettings
+    drive: DriveSettings
+    encoders: EncoderSettings
+    sampling: SamplingSettings = Field(default_factory=SamplingSettings)
+    estimator: EstimatorSettings = Field(default_factory=EstimatorSettings)
+    balance: BalanceSettings = Field(default_factory=BalanceSettings)
+    swing_up: SwingUpSettings = Field(default_factory=SwingUpSettings)
+    catch: CatchSettings = Field(default_factory=CatchSettings)
+    homing: HomingSettings = Field(default_factory=HomingSettings)
+    interlocks: InterlockSettings = Field(default_factory=InterlockSettings)
+    stop: StopSettings = Field(default_factory=StopSettings)
+    recording: RecordingSettings = Field(default_factory=RecordingSettings)
+    api: ApiSettings = Field(default_factory=ApiSettings)
+
+
+class ConfigError(Exception):
+    """A config that cannot be used; ``problems`` holds one human line per fault."""
+
+    def __init__(self, source: str, problems: list[str]):
+        self.source = source
+        self.problems = problems
+        super().__init__("\n".join(f"{source}: {p}" for p in problems))
+
+
+def _describe(error: dict) -> str:
+    path = ".".join(str(part) for part in error["loc"]) or "(top level)"
+    message = error["msg"]
+    if message.startswith("Value error, "):
+        message = message[len("Value error, ") :]
+    if error["type"] == "extra_forbidden":
+        message = "unknown field (check the spelling; see configs/ for the fields a rig config takes)"
+    elif error["type"] == "missing":
+        message = "required field is missing"
+    elif "input" in error and error["type"] not in ("model_type", "dict_type"):
+        message = f"{message} (got {error['input']!r})"
+    return f"{path}: {message}"
+
+
+def parse_config(text: str, source: str = "<config>") -> PoiseConfig:
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(source, [f"not valid TOML: {exc}"]) from None
+    try:
+        return PoiseConfig.model_validate(data)
+    except ValidationError as exc:
+        raise ConfigError(source, [_describe(e) for e in exc.errors()]) from None
+
+
+def load_config(path: str | Path) -> PoiseConfig:
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except OSError as exc:
+        raise ConfigError(str(path), [f"cannot read file: {exc.strerror}"]) from None
+    except UnicodeDecodeError:
+        raise ConfigError(str(path), ["not UTF-8 text"]) from None
+    return parse_config(text, str(path))
+
+
+def demo_config_path() -> Path:
+    """The demo rig's config shipped inside the package (also in configs/)."""
+    return Path(str(resources.files("daemon.config").joinpath("demo_rig.toml")))
