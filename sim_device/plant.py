@@ -64,16 +64,23 @@ from sim_device.track import TrackParams, limit_switches
 
 __all__ = [
     "DriveParams",
+    "Plant",
     "PlantParams",
     "State",
     "TrackParams",
     "applied_command",
+    "cart_counts",
     "cart_force",
     "drive_gains",
     "effective_command",
     "limit_switches",
     "linearise",
+    "pendulum_counts",
+    "pendulum_energy",
     "state_derivative",
+    "theta_from_counts",
+    "total_energy",
+    "x_from_counts",
 ]
 
 State = tuple[float, float, float, float]
@@ -197,3 +204,209 @@ def linearise(
     )
     b_vec = np.array([0.0, jp * gain / det, 0.0, ml * c0 * gain / det])
     return a_mat, b_vec
+
+
+def pendulum_energy(params: PlantParams, state: State) -> float:
+    """The pendulum's energy in the cart's frame, joules, zero hanging at rest.
+
+    ``1/2 J w^2 + m g l (1 + cos th)``: ``2 m g l`` upright at rest. This is the
+    quantity energy-based swing-up regulates.
+    """
+    _x, _v, th, w = state
+    ml = params.pendulum_mass_kg * params.com_distance_m
+    return 0.5 * params.pivot_inertia_kgm2 * w * w + ml * params.gravity_mps2 * (1.0 + math.cos(th))
+
+
+def total_energy(params: PlantParams, state: State) -> float:
+    """Total mechanical energy, joules, zero with the cart still and the pendulum hanging.
+
+    Kinetic energy of cart (with reflected rotor), pendulum translation and
+    rotation, plus the pendulum's potential energy: ``T + V`` of the docstring.
+    """
+    _x, v, th, w = state
+    ml_c = params.pendulum_mass_kg * params.com_distance_m * math.cos(th)
+    kinetic = 0.5 * params.moving_mass_kg * v * v - ml_c * v * w
+    return kinetic + pendulum_energy(params, state)
+
+
+def cart_counts(x_m: float, counts_per_m: float) -> int:
+    """Cart encoder count nearest to ``x_m`` (0 at the track centre)."""
+    return math.floor(x_m * counts_per_m + 0.5)
+
+
+def x_from_counts(counts: int, counts_per_m: float) -> float:
+    return counts / counts_per_m
+
+
+def pendulum_counts(theta_rad: float, counts_per_rev: int) -> int:
+    """Pendulum encoder count nearest to ``theta_rad``; 0 hanging, multi-turn (never wraps)."""
+    return math.floor((theta_rad - math.pi) * counts_per_rev / (2.0 * math.pi) + 0.5)
+
+
+def theta_from_counts(counts: int, counts_per_rev: int) -> float:
+    """``theta = pi + counts * 2 pi / counts_per_rev``."""
+    return math.pi + counts * (2.0 * math.pi) / counts_per_rev
+
+
+class Plant:
+    """The simulated rig's mechanics, stepped with fixed-step RK4.
+
+    ``step(command, dt_s)`` holds the command for ``dt_s`` and integrates it in
+    ``substeps`` RK4 sub-steps. Pure float arithmetic and no randomness: the same
+    calls give bit-identical states. End stops are checked after every sub-step.
+    """
+
+    def __init__(
+        self,
+        params: PlantParams,
+        state0: State = (0.0, 0.0, math.pi, 0.0),
+        substeps: int = 2,
+    ):
+        if substeps < 1:
+            raise ValueError(f"Plant: substeps must be >= 1 (got {substeps!r})")
+        self.params = params
+        self.substeps = substeps
+        self._accel = _acceleration_function(params)
+        self._gain = drive_gains(params.drive)[0]
+        self._ml = params.pendulum_mass_kg * params.com_distance_m
+        self._jp = params.pivot_inertia_kgm2
+        self._mt = params.moving_mass_kg
+        self._held = False
+        self._end_stop_touched = False
+        self.set_state(state0)
+
+    # -- state ---------------------------------------------------------------
+
+    @property
+    def state(self) -> State:
+        return self._x, self._v, self._th, self._w
+
+    def set_state(self, state: State) -> None:
+        """Place the rig in ``state`` (clamped to the track; cart still if held)."""
+        x, v, th, w = (float(value) for value in state)
+        half = self.params.track.half_length_m
+        self._x = min(max(x, -half), half)
+        self._v = 0.0 if self._held else v
+        self._th = th
+        self._w = w
+
+    @property
+    def held(self) -> bool:
+        return self._held
+
+    def hold_cart(self, held: bool) -> None:
+        """Clamp the cart still where it is (``True``) or let it go (``False``).
+
+        Clamping a moving cart stops it like an end stop does (the pendulum
+        keeps its momentum about the pivot).
+        """
+        if held and self._v != 0.0:
+            self._stop_cart()
+        self._held = held
+
+    @property
+    def end_stop_touched(self) -> bool:
+        """Whether the cart was against an end stop at any time in the last step."""
+        return self._end_stop_touched
+
+    @property
+    def limit_switches(self) -> tuple[bool, bool]:
+        """``(negative-end, positive-end)`` limit switch states now."""
+        return limit_switches(self.params.track, self._x)
+
+    def pendulum_energy(self) -> float:
+        return pendulum_energy(self.params, self.state)
+
+    def total_energy(self) -> float:
+        return total_energy(self.params, self.state)
+
+    # -- disturbances ----------------------------------------------------------
+
+    def apply_impulse(self, pendulum_ns: float = 0.0, cart_ns: float = 0.0) -> None:
+        """Apply horizontal impulses (N s, +x positive) at the pendulum's centre of mass and on the cart.
+
+        Solves the impulse-momentum equations of the constrained system (module
+        docstring). A held cart takes the cart's share and stays still.
+        """
+        mlc = self._ml * math.cos(self._th)
+        p_x = pendulum_ns + cart_ns
+        p_th = -self.params.com_distance_m * math.cos(self._th) * pendulum_ns
+        if self._held:
+            self._w += p_th / self._jp
+            return
+        det = self._mt * self._jp - mlc * mlc
+        self._v += (self._jp * p_x + mlc * p_th) / det
+        self._w += (mlc * p_x + self._mt * p_th) / det
+
+    def _stop_cart(self) -> None:
+        """Stop the cart dead, keeping the pendulum's generalised momentum ``J w - m l c v``."""
+        self._w -= self._ml * math.cos(self._th) * self._v / self._jp
+        self._v = 0.0
+
+    # -- integration -------------------------------------------------------------
+
+    def step(self, command: float, dt_s: float) -> None:
+        """Advance ``dt_s`` seconds with the drive ``command`` (volts or newtons) held."""
+        if not dt_s > 0.0:
+            raise ValueError(f"Plant.step: dt_s must be > 0 (got {dt_s!r})")
+        f_rest = self._gain * effective_command(self.params.drive, command)
+        h = dt_s / self.substeps
+        if self._held:
+            self._step_held(h)
+        else:
+            self._step_free(f_rest, h)
+
+    def _step_held(self, h: float) -> None:
+        """Pendulum alone on a clamped cart: ``J alpha = m g l sin th - b_p w``."""
+        mgl = self._ml * self.params.gravity_mps2
+        bp = self.params.pivot_viscous_nms_per_rad
+        jp = self._jp
+        sin = math.sin
+        th, w = self._th, self._w
+        h2, h6 = 0.5 * h, h / 6.0
+        for _ in range(self.substeps):
+            al1 = (mgl * sin(th) - bp * w) / jp
+            w2 = w + h2 * al1
+            al2 = (mgl * sin(th + h2 * w) - bp * w2) / jp
+            w3 = w + h2 * al2
+            al3 = (mgl * sin(th + h2 * w2) - bp * w3) / jp
+            w4 = w + h * al3
+            al4 = (mgl * sin(th + h * w3) - bp * w4) / jp
+            th += h6 * (w + 2.0 * (w2 + w3) + w4)
+            w += h6 * (al1 + 2.0 * (al2 + al3) + al4)
+        self._th, self._w = th, w
+        self._end_stop_touched = abs(self._x) >= self.params.track.half_length_m
+
+    def _step_free(self, f_rest: float, h: float) -> None:
+        accel = self._accel
+        sin, cos = math.sin, math.cos
+        half = self.params.track.half_length_m
+        stiction = self.params.cart_coulomb_n > 0.0
+        ml_over_jp = self._ml / self._jp
+        x, v, th, w = self._x, self._v, self._th, self._w
+        h2, h6 = 0.5 * h, h / 6.0
+        touched = False
+        for _ in range(self.substeps):
+            a1, al1 = accel(v, sin(th), cos(th), w, f_rest)
+            v2, th2, w2 = v + h2 * a1, th + h2 * w, w + h2 * al1
+            a2, al2 = accel(v2, sin(th2), cos(th2), w2, f_rest)
+            v3, th3, w3 = v + h2 * a2, th + h2 * w2, w + h2 * al2
+            a3, al3 = accel(v3, sin(th3), cos(th3), w3, f_rest)
+            v4, th4, w4 = v + h * a3, th + h * w3, w + h * al3
+            a4, al4 = accel(v4, sin(th4), cos(th4), w4, f_rest)
+            x += h6 * (v + 2.0 * (v2 + v3) + v4)
+            th += h6 * (w + 2.0 * (w2 + w3) + w4)
+            w += h6 * (al1 + 2.0 * (al2 + al3) + al4)
+            v_new = v + h6 * (a1 + 2.0 * (a2 + a3) + a4)
+            if stiction and (v_new > 0.0) != (v > 0.0) and v != 0.0:
+                v_new = 0.0  # velocity reversed within the sub-step: let the stick test decide
+            v = v_new
+            if x >= half or x <= -half:
+                touched = True
+                if x > half or x < -half:
+                    x = half if x > 0.0 else -half
+                if (v > 0.0) == (x > 0.0) and v != 0.0:
+                    w -= ml_over_jp * cos(th) * v
+                    v = 0.0
+        self._x, self._v, self._th, self._w = x, v, th, w
+        self._end_stop_touched = touched
