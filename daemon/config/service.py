@@ -2,9 +2,12 @@
 
 from __future__ import annotations
 
-from pydantic import Field
+from pydantic import Field, field_validator, model_validator
 
 from daemon.config.base import Section
+
+# Linux sockaddr_un.sun_path holds 108 bytes including the terminating NUL (unix(7)).
+UNIX_SOCKET_PATH_MAX_BYTES = 107
 
 
 class RecordingSettings(Section):
@@ -12,5 +15,37 @@ class RecordingSettings(Section):
 
 
 class ApiSettings(Section):
+    """The control API's Unix socket and the limits that keep one client from hurting the rest.
+
+    ``status_rate_hz`` is the stream rate a subscriber gets when it names none;
+    ``max_status_rate_hz`` caps what it may ask for. ``max_line_bytes`` bounds one
+    request line (a longer line gets an error reply and the connection is closed).
+    ``client_queue_lines`` bounds each client's outgoing queue: status lines beyond
+    it are dropped and counted, a reply beyond it disconnects the client.
+    """
+
     socket_path: str = Field(default="/tmp/poise.sock", min_length=1)
     status_rate_hz: float = Field(default=10.0, gt=0.0, le=200.0)
+    max_status_rate_hz: float = Field(default=50.0, gt=0.0, le=200.0)
+    max_line_bytes: int = Field(default=65536, ge=1024, le=1 << 20)
+    client_queue_lines: int = Field(default=64, ge=4, le=65536)
+    max_clients: int = Field(default=16, ge=1, le=256)
+
+    @field_validator("socket_path")
+    @classmethod
+    def _fits_in_sockaddr(cls, value: str) -> str:
+        size = len(value.encode())
+        if size > UNIX_SOCKET_PATH_MAX_BYTES:
+            raise ValueError(
+                f"a Unix socket path may be at most {UNIX_SOCKET_PATH_MAX_BYTES} bytes, this one is {size}"
+            )
+        return value
+
+    @model_validator(mode="after")
+    def _default_rate_within_cap(self) -> ApiSettings:
+        if self.status_rate_hz > self.max_status_rate_hz:
+            raise ValueError(
+                f"status_rate_hz ({self.status_rate_hz}) must not exceed max_status_rate_hz "
+                f"({self.max_status_rate_hz})"
+            )
+        return self

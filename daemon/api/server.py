@@ -1,0 +1,451 @@
+"""The control API server: a local Unix-domain socket speaking JSON lines (see daemon/api/wire.py).
+
+It serves any *target* with ``execute(command, args, source) -> dict`` (raising
+:class:`daemon.errors.CommandRefused` when the command does not apply now) and
+``status() -> dict``. Requests are checked against the command table before the
+target sees them, so a bad request changes nothing.
+
+Nothing here ever makes the event loop wait on a client: request handling and
+status fan-out are synchronous and only append to a per-client outgoing queue,
+which that client's own writer task drains. The queue is bounded
+(``api.client_queue_lines``): when it is full the oldest queued status line is
+dropped (counted per client and in :meth:`ApiServer.stats`); when it is full of
+replies the client is not reading at all and is disconnected.
+
+Policies a client can rely on:
+
+- a request line longer than ``api.max_line_bytes`` gets an error reply with id
+  null and the connection is closed (after an unbounded line the framing cannot
+  be trusted, and skipping it would mean reading it all);
+- blank lines are ignored; a final line without a newline before end-of-file is
+  still served;
+- after ``subscribe`` (rate from ``args.rate_hz``, else ``api.status_rate_hz``,
+  at most ``api.max_status_rate_hz``) the client gets one status line at once
+  and then one per period, paced by absolute deadlines: a late tick is not
+  followed by a burst; subscribing again changes the rate.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import logging
+import os
+import stat
+from collections import deque
+from collections.abc import Callable
+from dataclasses import asdict, dataclass
+from pathlib import Path
+from typing import Protocol, Self
+
+from daemon.api.wire import (
+    BAD_REQUEST,
+    FAILED,
+    REFUSED,
+    Request,
+    RequestError,
+    encode_line,
+    error_reply,
+    ok_reply,
+    parse_request,
+)
+from daemon.config.service import ApiSettings
+from daemon.errors import CommandRefused, OperatorError
+
+log = logging.getLogger(__name__)
+
+# How long a closing connection may take to flush what is already queued for it.
+CLOSE_GRACE_S = 1.0
+# How long to wait for an existing socket to accept a connection before calling it live.
+LIVE_CHECK_TIMEOUT_S = 1.0
+
+
+class CommandTarget(Protocol):
+    def execute(self, command: str, args: dict, source: str) -> dict: ...
+
+    def status(self) -> dict: ...
+
+
+class TimerHandle(Protocol):
+    def cancel(self) -> None: ...
+
+
+class Clock(Protocol):
+    """What paces the status stream: the running event loop, or a test's manual clock."""
+
+    def time(self) -> float: ...
+
+    def call_at(self, when: float, callback: Callable[[], object]) -> TimerHandle: ...
+
+
+@dataclass
+class ApiStats:
+    connections: int = 0
+    clients_turned_away: int = 0
+    requests: int = 0
+    bad_requests: int = 0
+    refused: int = 0
+    failed: int = 0
+    oversize_lines: int = 0
+    status_lines_queued: int = 0
+    status_lines_dropped: int = 0
+    status_failures: int = 0
+    slow_clients_disconnected: int = 0
+
+
+class _Client:
+    """One connection: its bounded outgoing queue and, once subscribed, its stream schedule."""
+
+    def __init__(self, writer: asyncio.StreamWriter, queue_lines: int, stats: ApiStats):
+        self.writer = writer
+        self.queue_lines = queue_lines
+        self.stats = stats
+        self.lines: deque[tuple[bool, bytes]] = deque()  # (is_status_line, line)
+        self.wakeup = asyncio.Event()
+        self.closing = False
+        self.period_s = 0.0
+        self.next_due = 0.0
+        self.status_dropped = 0
+
+    def _make_room(self) -> bool:
+        """Free one slot if the queue is full by dropping its oldest status line; False if it holds only replies."""
+        if len(self.lines) < self.queue_lines:
+            return True
+        for index, (is_status, _) in enumerate(self.lines):
+            if is_status:
+                del self.lines[index]
+                self._count_dropped_status()
+                return True
+        return False
+
+    def _count_dropped_status(self) -> None:
+        self.status_dropped += 1
+        self.stats.status_lines_dropped += 1
+
+    def offer_status(self, line: bytes) -> None:
+        """Queue a status line, dropping (and counting) the oldest queued one if the queue is full."""
+        if self.closing:
+            return
+        if not self._make_room():
+            self._count_dropped_status()
+            return
+        self.lines.append((True, line))
+        self.stats.status_lines_queued += 1
+        self.wakeup.set()
+
+    def send_reply(self, line: bytes) -> bool:
+        """Queue a reply; False if the client is not reading its replies (the caller disconnects it)."""
+        if self.closing:
+            return True
+        if not self._make_room():
+            return False
+        self.lines.append((False, line))
+        self.wakeup.set()
+        return True
+
+    def finish(self) -> None:
+        """Accept nothing more; the writer flushes what is queued and stops."""
+        self.closing = True
+        self.wakeup.set()
+
+    def abort(self) -> None:
+        """Drop everything queued and cut the connection now."""
+        self.closing = True
+        self.lines.clear()
+        self.wakeup.set()
+        self.writer.transport.abort()
+
+
+class ApiServer:
+    """Serve ``target`` on ``settings.socket_path``. Use ``async with`` or start()/close()."""
+
+    def __init__(self, target: CommandTarget, settings: ApiSettings, *, clock: Clock | None = None):
+        self._target = target
+        self._settings = settings
+        self._clock = clock
+        self._path = Path(settings.socket_path)
+        self._server: asyncio.AbstractServer | None = None
+        self._inode: int | None = None
+        self._clients: set[_Client] = set()
+        self._clients_changed = asyncio.Condition()
+        self._subscribers: set[_Client] = set()
+        self._timer: TimerHandle | None = None
+        self._timer_when = 0.0
+        self._last_status_error = ""
+        self._stats = ApiStats()
+
+    @property
+    def socket_path(self) -> Path:
+        return self._path
+
+    async def __aenter__(self) -> Self:
+        await self.start()
+        return self
+
+    async def __aexit__(self, *exc_info: object) -> None:
+        await self.close()
+
+    async def start(self) -> None:
+        """Create the socket (mode 0600); refuse if another daemon is live on it, replace a stale one."""
+        if self._clock is None:
+            self._clock = asyncio.get_running_loop()
+        await _claim_socket_path(self._path)
+        old_umask = os.umask(0o177)
+        try:
+            self._server = await asyncio.start_unix_server(
+                self._serve_client, path=str(self._path), limit=self._settings.max_line_bytes
+            )
+        except OSError as exc:
+            raise OperatorError(
+                f"cannot create control socket {self._path}: {exc.strerror}"
+            ) from None
+        finally:
+            os.umask(old_umask)
+        os.chmod(self._path, 0o600)
+        self._inode = self._path.stat().st_ino
+        log.info("control API listening on %s", self._path)
+
+    async def close(self) -> None:
+        """Stop listening, disconnect every client and remove the socket file (if it is still ours)."""
+        if self._server is None:
+            return
+        self._server.close()
+        self._subscribers.clear()
+        self._reschedule()
+        for client in list(self._clients):
+            client.abort()
+        await self._server.wait_closed()
+        await self.wait_for_clients(0)
+        self._server = None
+        try:
+            if self._path.stat().st_ino == self._inode:
+                self._path.unlink()
+        except FileNotFoundError:
+            pass
+
+    async def wait_for_clients(self, count: int) -> None:
+        """Return once exactly ``count`` clients are connected."""
+        async with self._clients_changed:
+            await self._clients_changed.wait_for(lambda: len(self._clients) == count)
+
+    def stats(self) -> dict:
+        """Counters since start, plus the number of clients and subscribers now."""
+        return {
+            **asdict(self._stats),
+            "clients": len(self._clients),
+            "subscribers": len(self._subscribers),
+        }
+
+    # --- one connection ---------------------------------------------------------------
+
+    async def _serve_client(
+        self, reader: asyncio.StreamReader, writer: asyncio.StreamWriter
+    ) -> None:
+        self._stats.connections += 1
+        if len(self._clients) >= self._settings.max_clients:
+            self._stats.clients_turned_away += 1
+            message = f"too many clients (at most {self._settings.max_clients}); try again later"
+            writer.write(encode_line(error_reply(None, BAD_REQUEST, message)))
+            writer.close()
+            return
+        client = _Client(writer, self._settings.client_queue_lines, self._stats)
+        await self._add_client(client)
+        writer_task = asyncio.create_task(self._write_loop(client))
+        try:
+            await self._read_loop(reader, client)
+        finally:
+            self._unsubscribe(client)
+            client.finish()
+            try:
+                async with asyncio.timeout(CLOSE_GRACE_S):
+                    await writer_task
+            except TimeoutError:
+                client.abort()
+            writer.close()
+            await self._remove_client(client)
+
+    async def _read_loop(self, reader: asyncio.StreamReader, client: _Client) -> None:
+        while not client.closing:
+            try:
+                line = await reader.readuntil(b"\n")
+            except asyncio.IncompleteReadError as end:
+                if end.partial.strip():
+                    self._handle_line(client, end.partial)
+                return
+            except asyncio.LimitOverrunError:
+                self._stats.oversize_lines += 1
+                message = f"request line longer than {self._settings.max_line_bytes} bytes; closing the connection"
+                self._reply(client, error_reply(None, BAD_REQUEST, message))
+                return
+            except ConnectionError:
+                return
+            if line.strip():
+                self._handle_line(client, line)
+
+    async def _write_loop(self, client: _Client) -> None:
+        writer = client.writer
+        try:
+            while True:
+                while client.lines:
+                    _, line = client.lines.popleft()
+                    writer.write(line)
+                    await writer.drain()
+                if client.closing:
+                    return
+                client.wakeup.clear()
+                await client.wakeup.wait()
+        except ConnectionError:
+            client.abort()
+
+    async def _add_client(self, client: _Client) -> None:
+        async with self._clients_changed:
+            self._clients.add(client)
+            self._clients_changed.notify_all()
+
+    async def _remove_client(self, client: _Client) -> None:
+        async with self._clients_changed:
+            self._clients.discard(client)
+            self._clients_changed.notify_all()
+
+    # --- requests -----------------------------------------------------------------------
+
+    def _handle_line(self, client: _Client, line: bytes) -> None:
+        self._stats.requests += 1
+        try:
+            request = parse_request(line)
+        except RequestError as exc:
+            self._stats.bad_requests += 1
+            self._reply(client, error_reply(exc.request_id, BAD_REQUEST, str(exc)))
+            return
+        if request.cmd == "subscribe":
+            self._handle_subscribe(client, request)
+        elif request.cmd == "status":
+            self._reply(client, self._call_target(request, lambda: self._target.status()))
+        else:
+            self._reply(
+                client,
+                self._call_target(
+                    request, lambda: self._target.execute(request.cmd, request.args, request.source)
+                ),
+            )
+
+    def _call_target(self, request: Request, call: Callable[[], dict]) -> dict:
+        try:
+            result = call()
+        except CommandRefused as exc:
+            self._stats.refused += 1
+            return error_reply(
+                request.id, REFUSED, f"{request.cmd} refused: {exc.reason}", exc.reason
+            )
+        except Exception as exc:
+            # The target's own bug must not take the API down; it is logged with its traceback.
+            log.exception("control API: %s from %s failed", request.cmd, request.source)
+            self._stats.failed += 1
+            message = f"{request.cmd} failed inside the daemon ({type(exc).__name__}: {exc}); see the daemon log"
+            return error_reply(request.id, FAILED, message)
+        return ok_reply(request.id, result)
+
+    def _reply(self, client: _Client, reply: dict) -> None:
+        try:
+            line = encode_line(reply)
+        except (TypeError, ValueError) as exc:
+            log.error(
+                "control API: reply to request %r cannot be encoded: %s", reply.get("id"), exc
+            )
+            self._stats.failed += 1
+            line = encode_line(
+                error_reply(reply.get("id"), FAILED, f"reply cannot be encoded as JSON ({exc})")
+            )
+        if not client.send_reply(line):
+            self._stats.slow_clients_disconnected += 1
+            log.warning("control API: client stopped reading its replies; disconnected")
+            self._unsubscribe(client)
+            client.abort()
+
+    # --- status stream ------------------------------------------------------------------
+
+    def _handle_subscribe(self, client: _Client, request: Request) -> None:
+        rate_hz = float(request.args.get("rate_hz", self._settings.status_rate_hz))
+        if rate_hz > self._settings.max_status_rate_hz:
+            self._stats.bad_requests += 1
+            message = f"subscribe: argument 'rate_hz' must be at most {self._settings.max_status_rate_hz:g} (got {rate_hz:g})"
+            self._reply(client, error_reply(request.id, BAD_REQUEST, message))
+            return
+        assert self._clock is not None
+        client.period_s = 1.0 / rate_hz
+        client.next_due = self._clock.time() + client.period_s
+        self._reply(client, ok_reply(request.id, {"rate_hz": rate_hz}))
+        line = self._status_line()
+        if line is not None:
+            client.offer_status(line)
+        if not client.closing:
+            self._subscribers.add(client)
+            self._reschedule()
+
+    def _unsubscribe(self, client: _Client) -> None:
+        if client in self._subscribers:
+            self._subscribers.discard(client)
+            self._reschedule()
+
+    def _reschedule(self) -> None:
+        if self._timer is not None:
+            self._timer.cancel()
+            self._timer = None
+        if self._subscribers:
+            assert self._clock is not None
+            self._timer_when = min(client.next_due for client in self._subscribers)
+            self._timer = self._clock.call_at(self._timer_when, self._on_timer)
+
+    def _on_timer(self) -> None:
+        self._timer = None
+        assert self._clock is not None
+        # A timer may fire a hair before its deadline (clock resolution); it is due all the same.
+        now = max(self._clock.time(), self._timer_when)
+        due = [client for client in self._subscribers if client.next_due <= now]
+        line = self._status_line() if due else None
+        for client in due:
+            if line is not None:
+                client.offer_status(line)
+            client.next_due += client.period_s
+            if client.next_due <= now:
+                client.next_due = now + client.period_s
+        self._reschedule()
+
+    def _status_line(self) -> bytes | None:
+        """One encoded status line shared by every subscriber due now, or None if status() failed."""
+        try:
+            return encode_line({"status": self._target.status()})
+        except Exception as exc:
+            self._stats.status_failures += 1
+            if repr(exc) != self._last_status_error:
+                self._last_status_error = repr(exc)
+                log.exception("control API: status() failed; status lines skipped until it works")
+            return None
+
+
+async def _claim_socket_path(path: Path) -> None:
+    """Make ``path`` free for a new socket: refuse if a live daemon answers there, remove a stale socket file."""
+    try:
+        mode = path.lstat().st_mode
+    except FileNotFoundError:
+        return
+    if not stat.S_ISSOCK(mode):
+        raise OperatorError(
+            f"control socket path {path} exists and is not a socket; move it or set api.socket_path"
+        )
+    try:
+        async with asyncio.timeout(LIVE_CHECK_TIMEOUT_S):
+            _, writer = await asyncio.open_unix_connection(str(path))
+    except (ConnectionRefusedError, FileNotFoundError):
+        path.unlink(missing_ok=True)
+        log.info("removed stale control socket %s", path)
+        return
+    except TimeoutError:
+        raise OperatorError(
+            f"another daemon seems to be serving on {path} (it accepted no connection in time)"
+        ) from None
+    except OSError as exc:
+        raise OperatorError(
+            f"cannot check existing control socket {path}: {exc.strerror}"
+        ) from None
+    writer.close()
+    raise OperatorError(f"another Poise daemon is already serving on {path}")

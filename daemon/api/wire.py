@@ -1,0 +1,128 @@
+"""JSON lines on the control socket: parsing requests and encoding replies and status lines.
+
+A request is one line holding a JSON object::
+
+    {"id": 7, "cmd": "setpoint", "args": {"x_m": 0.1}, "source": "cli"}
+
+``id`` (an integer or a short string) is echoed in the reply; ``args`` may be
+left out when a command takes none; ``source`` says which kind of client sent it
+(one of ``CLIENT_SOURCES``, default ``"api"``) and ends up in the supervisor's
+event log. Replies are ``{"id": ..., "ok": true, "result": {...}}`` or
+``{"id": ..., "ok": false, "code": ..., "error": "<one line>"}``; a refusal also
+carries ``"reason"``. Status stream lines are ``{"status": {...}}``.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass
+
+from daemon.api.commands import BadRequest, validate_args
+
+CLIENT_SOURCES = ("api", "cli", "dashboard")
+REQUEST_FIELDS = ("id", "cmd", "args", "source")
+ID_MAX_CHARS = 100
+
+# Error codes in replies.
+BAD_REQUEST = "bad_request"
+REFUSED = "refused"
+FAILED = "failed"
+
+
+@dataclass(frozen=True)
+class Request:
+    id: int | str
+    cmd: str
+    args: dict[str, object]
+    source: str
+
+
+class RequestError(BadRequest):
+    """A bad request; ``request_id`` is its id when that much could be read, else None."""
+
+    def __init__(self, message: str, request_id: int | str | None):
+        super().__init__(message)
+        self.request_id = request_id
+
+
+def parse_request(line: bytes) -> Request:
+    """Decode and check one request line (without caring about its trailing newline)."""
+    try:
+        data = json.loads(line)
+    except UnicodeDecodeError:
+        raise RequestError("request is not UTF-8 text", None) from None
+    except json.JSONDecodeError as exc:
+        raise RequestError(
+            f"request is not valid JSON ({exc.msg} at column {exc.colno})", None
+        ) from None
+    except RecursionError:
+        raise RequestError("request is nested too deeply", None) from None
+    if not isinstance(data, dict):
+        raise RequestError("request must be a JSON object", None)
+    request_id = data.get("id")
+    if not _valid_id(request_id):
+        raise RequestError(
+            f"request field 'id' must be an integer or a string of at most {ID_MAX_CHARS} characters",
+            None,
+        )
+    for name in data:
+        if name not in REQUEST_FIELDS:
+            raise RequestError(
+                f"request has unknown field {name!r} (fields: {', '.join(REQUEST_FIELDS)})",
+                request_id,
+            )
+    cmd = data.get("cmd")
+    if not isinstance(cmd, str):
+        raise RequestError("request field 'cmd' must be a command name", request_id)
+    args = data.get("args", {})
+    if not isinstance(args, dict):
+        raise RequestError(f"{cmd}: 'args' must be a JSON object", request_id)
+    source = data.get("source", "api")
+    if source not in CLIENT_SOURCES:
+        raise RequestError(
+            f"request field 'source' must be one of {', '.join(CLIENT_SOURCES)}", request_id
+        )
+    try:
+        clean_args = validate_args(cmd, args)
+    except BadRequest as exc:
+        raise RequestError(str(exc), request_id) from None
+    return Request(id=request_id, cmd=cmd, args=clean_args, source=source)
+
+
+def _valid_id(value: object) -> bool:
+    if isinstance(value, bool):
+        return False
+    return isinstance(value, int) or (isinstance(value, str) and len(value) <= ID_MAX_CHARS)
+
+
+def encode_line(message: dict) -> bytes:
+    """One JSON line. NaN and infinities (a sensor not fitted) go out as null, so every line is strict JSON."""
+    try:
+        text = json.dumps(message, allow_nan=False, separators=(",", ":"))
+    except ValueError:
+        text = json.dumps(_finite_or_null(message), allow_nan=False, separators=(",", ":"))
+    return text.encode() + b"\n"
+
+
+def _finite_or_null(value: object) -> object:
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, dict):
+        return {key: _finite_or_null(item) for key, item in value.items()}
+    if isinstance(value, list | tuple):
+        return [_finite_or_null(item) for item in value]
+    return value
+
+
+def ok_reply(request_id: int | str, result: dict) -> dict:
+    return {"id": request_id, "ok": True, "result": result}
+
+
+def error_reply(
+    request_id: int | str | None, code: str, error: str, reason: str | None = None
+) -> dict:
+    reply: dict = {"id": request_id, "ok": False, "code": code, "error": error}
+    if reason is not None:
+        reply["reason"] = reason
+    return reply
