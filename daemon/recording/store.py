@@ -1,0 +1,265 @@
+"""Opening the run store for writing (one writer per file) or reading, and reading runs back.
+
+Durability: the store runs in WAL mode with ``synchronous=NORMAL``. A commit then
+appends the transaction to the ``-wal`` file with write() and returns without
+fsync; the WAL is fsynced only at checkpoints. That is crash-safe for the
+failure this store must survive most often, a killed or crashed process
+(``kill -9``, segfault, OOM kill): the written pages are already in the
+operating system's page cache, so every committed transaction survives, and an
+uncommitted one is rolled back on the next open. A power cut or kernel crash
+can lose the transactions committed since the last checkpoint (at most about
+one WAL's worth, ~4 MB by default), but never corrupts the file: SQLite
+ignores WAL frames after the last valid commit. ``synchronous=FULL`` would
+close that window at the price of one fsync per commit, which breaks the
+commit-time budget on ordinary disks.
+
+One writer per file: the writer holds an exclusive ``flock`` on ``<db>.lock``
+for its lifetime (the kernel drops it when the process dies, however it dies).
+Holding it is what makes it safe to mark runs still open at start-up as
+aborted: no other live process can be recording them.
+"""
+
+from __future__ import annotations
+
+import fcntl
+import json
+import os
+import sqlite3
+import time
+from collections.abc import Iterator
+from dataclasses import dataclass
+from pathlib import Path
+from urllib.parse import quote
+
+from daemon.recording.errors import RecordingError
+from daemon.recording.schema import SAMPLE_COLUMN_NAMES, SCHEMA_VERSION, check_version, migrate
+
+ABORTED = "aborted"  # outcome of a run whose writer ended without closing it
+LOCK_WAIT_S = 1.0  # a reader probing the lock holds it for microseconds; ride that out
+
+
+def lock_path(db_path: str | Path) -> Path:
+    return Path(f"{db_path}.lock")
+
+
+def _describe_os_error(exc: OSError) -> str:
+    return exc.strerror or str(exc)
+
+
+class WriterLock:
+    """Exclusive ownership of one run store by one process, via flock on ``<db>.lock``."""
+
+    def __init__(self, db_path: str | Path):
+        path = lock_path(db_path)
+        try:
+            self._fd = os.open(path, os.O_RDWR | os.O_CREAT, 0o644)
+        except OSError as exc:
+            raise RecordingError(
+                f"run store {db_path}: cannot create lock file {path}: {_describe_os_error(exc)}"
+            ) from None
+        deadline = time.monotonic() + LOCK_WAIT_S
+        while True:
+            try:
+                fcntl.flock(self._fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+                break
+            except BlockingIOError:
+                if time.monotonic() >= deadline:
+                    holder = os.pread(self._fd, 32, 0).decode(errors="replace").strip() or "?"
+                    os.close(self._fd)
+                    raise RecordingError(
+                        f"run store {db_path}: already being recorded into by process {holder}"
+                    ) from None
+                time.sleep(0.01)
+        os.ftruncate(self._fd, 0)
+        os.pwrite(self._fd, f"{os.getpid()}\n".encode(), 0)
+
+    def release(self) -> None:
+        if self._fd >= 0:
+            os.close(self._fd)  # closing drops the flock
+            self._fd = -1
+
+
+def writer_active(db_path: str | Path) -> bool:
+    """True if some process holds the writer lock of this store (is recording into it now)."""
+    try:
+        fd = os.open(lock_path(db_path), os.O_RDONLY)
+    except FileNotFoundError:
+        return False
+    try:
+        fcntl.flock(fd, fcntl.LOCK_SH | fcntl.LOCK_NB)
+    except BlockingIOError:
+        return True
+    finally:
+        os.close(fd)
+    return False
+
+
+def open_for_writing(db_path: str | Path, max_db_bytes: int | None = None) -> sqlite3.Connection:
+    """Open (creating or migrating) a store; the caller must already hold its WriterLock.
+
+    The connection is in autocommit mode (explicit BEGIN/COMMIT) and may be
+    handed to one other thread (the writer thread) after set-up.
+    """
+    path = str(db_path)
+    try:
+        conn = sqlite3.connect(path, isolation_level=None, check_same_thread=False)
+        mode = conn.execute("PRAGMA journal_mode = WAL").fetchone()[0]
+        if mode != "wal":
+            raise RecordingError(f"run store {path}: cannot switch to WAL mode (got {mode})")
+        conn.execute("PRAGMA synchronous = NORMAL")  # see the module docstring for why this is safe
+        migrate(conn, path)
+        if max_db_bytes is not None:
+            page_size = conn.execute("PRAGMA page_size").fetchone()[0]
+            conn.execute(f"PRAGMA max_page_count = {max(1, max_db_bytes // page_size)}")
+    except sqlite3.Error as exc:
+        raise RecordingError(f"run store {path}: cannot open for writing: {exc}") from None
+    return conn
+
+
+def open_for_reading(db_path: str | Path) -> sqlite3.Connection:
+    """A read-only connection to an existing store of this schema version."""
+    path = str(db_path)
+    if not Path(path).is_file():
+        raise RecordingError(f"run store {path}: no such file")
+    try:
+        conn = sqlite3.connect(f"file:{quote(path)}?mode=ro", uri=True)
+        version = check_version(conn, path)
+    except sqlite3.Error as exc:
+        raise RecordingError(f"run store {path}: cannot open for reading: {exc}") from None
+    if version < SCHEMA_VERSION:
+        raise RecordingError(
+            f"run store {path}: schema version {version} predates this Poise ({SCHEMA_VERSION}); "
+            "start the daemon on it once to migrate it"
+        )
+    return conn
+
+
+def recover_unfinished_runs(conn: sqlite3.Connection) -> list[int]:
+    """Mark runs left open by a writer that died as aborted; returns their ids.
+
+    The end time is the run's last committed sample (start time if none). Only
+    call this while holding the store's WriterLock.
+    """
+    open_runs = conn.execute(
+        "SELECT run_id, started_unix_ns, started_host_ns, last_sample_host_ns, samples_written "
+        "FROM runs WHERE outcome IS NULL ORDER BY run_id"
+    ).fetchall()
+    for run_id, started_unix_ns, started_host_ns, last_host_ns, samples_written in open_runs:
+        elapsed_ns = 0 if last_host_ns is None else max(0, last_host_ns - started_host_ns)
+        data = {
+            "reason": "the recording process ended without ending the run",
+            "samples_committed": samples_written,
+            "marked_by_pid": os.getpid(),
+        }
+        conn.execute("BEGIN IMMEDIATE")
+        conn.execute(
+            "UPDATE runs SET outcome = ?, ended_unix_ns = ? WHERE run_id = ?",
+            (ABORTED, started_unix_ns + elapsed_ns, run_id),
+        )
+        conn.execute(
+            "INSERT INTO events (run_id, t_host_ns, kind, source, data_json) VALUES (?, ?, ?, ?, ?)",
+            (run_id, started_host_ns + elapsed_ns, "run.aborted", "recorder", json.dumps(data)),
+        )
+        conn.execute("COMMIT")
+    return [row[0] for row in open_runs]
+
+
+@dataclass(frozen=True, slots=True)
+class RunRecord:
+    """One row of ``runs`` as stored, plus what a listing derives from it."""
+
+    run_id: int
+    rig_id: str
+    started_unix_ns: int
+    started_host_ns: int
+    ended_unix_ns: int | None
+    outcome: str | None
+    summary: dict | None
+    config_text: str
+    config_format: str
+    software_version: str
+    protocol_version: str
+    firmware_version: str
+    operator_notes: str
+    drive_kind: str
+    mode_names: dict[int, str]
+    modes_seen: list[int]
+    first_sample_id: int | None
+    last_sample_id: int | None
+    last_sample_host_ns: int | None
+    samples_written: int
+    samples_dropped: int
+    events_written: int
+    events_dropped: int
+
+    @property
+    def mode_reached(self) -> str | None:
+        """The seen mode that comes last in the run's mode table (listed in order of progression)."""
+        order = list(self.mode_names)
+        known = [code for code in self.modes_seen if code in self.mode_names]
+        if known:
+            return self.mode_names[max(known, key=order.index)]
+        if self.modes_seen:
+            return f"mode {max(self.modes_seen)}"
+        return None
+
+    @property
+    def duration_s(self) -> float | None:
+        """Start to end; for an open run, start to its last committed sample."""
+        if self.ended_unix_ns is not None:
+            return (self.ended_unix_ns - self.started_unix_ns) / 1e9
+        if self.last_sample_host_ns is not None:
+            return max(0, self.last_sample_host_ns - self.started_host_ns) / 1e9
+        return None
+
+
+_RUN_FIELDS = (
+    "run_id, rig_id, started_unix_ns, started_host_ns, ended_unix_ns, outcome, summary_json, "
+    "config_text, config_format, software_version, protocol_version, firmware_version, "
+    "operator_notes, drive_kind, mode_names_json, modes_seen_json, first_sample_id, "
+    "last_sample_id, last_sample_host_ns, samples_written, samples_dropped, events_written, "
+    "events_dropped"
+)
+
+
+def _run_record(row: tuple) -> RunRecord:
+    values = list(row)
+    values[6] = None if row[6] is None else json.loads(row[6])
+    values[14] = {int(code): name for code, name in json.loads(row[14])}
+    values[15] = json.loads(row[15])
+    return RunRecord(*values)
+
+
+def list_runs(conn: sqlite3.Connection) -> list[RunRecord]:
+    rows = conn.execute(f"SELECT {_RUN_FIELDS} FROM runs ORDER BY run_id").fetchall()
+    return [_run_record(row) for row in rows]
+
+
+def get_run(conn: sqlite3.Connection, run_id: int, db_path: str | Path) -> RunRecord:
+    row = conn.execute(f"SELECT {_RUN_FIELDS} FROM runs WHERE run_id = ?", (run_id,)).fetchone()
+    if row is None:
+        raise RecordingError(f"run {run_id}: no such run in run store {db_path}")
+    return _run_record(row)
+
+
+def sample_chunks(
+    conn: sqlite3.Connection, run: RunRecord, chunk_rows: int = 50_000
+) -> Iterator[list[tuple]]:
+    """The run's sample rows (SAMPLE_COLUMN_NAMES order) in recording order, a chunk at a time."""
+    if run.first_sample_id is None:
+        return
+    cursor = conn.execute(
+        f"SELECT {', '.join(SAMPLE_COLUMN_NAMES)} FROM samples "
+        "WHERE sample_id BETWEEN ? AND ? ORDER BY sample_id",
+        (run.first_sample_id, run.last_sample_id),
+    )
+    while chunk := cursor.fetchmany(chunk_rows):
+        yield chunk
+
+
+def run_events(conn: sqlite3.Connection, run_id: int) -> list[tuple[int, str, str, str]]:
+    """The run's events as (t_host_ns, kind, source, data_json), in recording order."""
+    return conn.execute(
+        "SELECT t_host_ns, kind, source, data_json FROM events WHERE run_id = ? ORDER BY event_id",
+        (run_id,),
+    ).fetchall()
