@@ -1,8 +1,9 @@
 """The `poise` command line: one sub-command per module in daemon/commands/.
 
 Each command module defines ``NAME``, ``HELP``, ``add_arguments(parser)`` and
-``run(args) -> int``. Modules import their heavy dependencies inside ``run`` so
-that `poise --help` stays fast. Errors meant for the operator are raised as
+``run(args) -> int``; a module offering several sub-commands instead defines
+``COMMANDS``, a list of ``(NAME, HELP, add_arguments, run)`` tuples. Modules
+import their heavy dependencies inside ``run`` so that `poise --help` stays fast. Errors meant for the operator are raised as
 :class:`daemon.errors.OperatorError` (or ConfigError) and printed as one line
 with exit status 2, never as a traceback.
 """
@@ -13,6 +14,7 @@ import argparse
 import importlib
 import pkgutil
 import sys
+from collections.abc import Callable
 from types import ModuleType
 
 import daemon.commands
@@ -21,8 +23,16 @@ from daemon.errors import OperatorError
 
 
 def _command_modules() -> list[ModuleType]:
-    names = sorted(m.name for m in pkgutil.iter_modules(daemon.commands.__path__) if not m.name.startswith("_"))
+    names = sorted(
+        m.name for m in pkgutil.iter_modules(daemon.commands.__path__) if not m.name.startswith("_")
+    )
     return [importlib.import_module(f"daemon.commands.{name}") for name in names]
+
+
+def _subcommands(module: ModuleType) -> list[tuple[str, str, Callable, Callable]]:
+    if hasattr(module, "COMMANDS"):
+        return module.COMMANDS
+    return [(module.NAME, module.HELP, module.add_arguments, module.run)]
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -33,9 +43,10 @@ def build_parser() -> argparse.ArgumentParser:
     )
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
     for module in _command_modules():
-        command = sub.add_parser(module.NAME, help=module.HELP, description=module.HELP)
-        module.add_arguments(command)
-        command.set_defaults(_run=module.run)
+        for name, help_text, add_arguments, run in _subcommands(module):
+            command = sub.add_parser(name, help=help_text, description=help_text)
+            add_arguments(command)
+            command.set_defaults(_run=run)
     return parser
 
 

@@ -1,0 +1,217 @@
+"""Operator commands sent to a running daemon over its control API: `poise arm`, `poise status`, ...
+
+Every verb takes ``--socket PATH`` (default: ``api.socket_path`` of ``--config
+FILE``, itself defaulting to the demo rig) and ``--json``. A refused command
+prints ``poise: <verb> refused: <reason>`` and exits 2, as does a daemon that is
+not running.
+"""
+
+from __future__ import annotations
+
+import argparse
+from collections.abc import Callable
+from dataclasses import dataclass, field
+
+from daemon.api.commands import EXCITE_KINDS
+
+# asyncio, json, rich and the API client are imported inside run() (see daemon/cli.py).
+
+DEFAULT_TIMEOUT_S = 5.0
+
+
+def _no_arguments(parser: argparse.ArgumentParser) -> None:
+    del parser
+
+
+def _no_api_args(args: argparse.Namespace) -> dict:
+    del args
+    return {}
+
+
+def _add_setpoint(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument(
+        "x_m", type=float, metavar="X_M", help="cart set-point, metres from the track centre"
+    )
+
+
+def _add_excite(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("--kind", required=True, choices=EXCITE_KINDS, help="excitation signal")
+    parser.add_argument(
+        "--amplitude",
+        required=True,
+        type=float,
+        help="drive amplitude (volts or newtons, as the rig's drive)",
+    )
+    parser.add_argument(
+        "--duration", required=True, type=float, metavar="S", help="length of the run in seconds"
+    )
+
+
+def _add_record(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("switch", choices=("on", "off"), help="start or stop recording")
+    parser.add_argument("--note", help="a note stored with the run")
+
+
+def _record_args(args: argparse.Namespace) -> dict:
+    api_args: dict = {"on": args.switch == "on"}
+    if args.note is not None:
+        api_args["note"] = args.note
+    return api_args
+
+
+@dataclass(frozen=True)
+class Verb:
+    """One CLI verb and the API command it sends."""
+
+    name: str
+    command: str
+    help: str
+    add_own_arguments: Callable[[argparse.ArgumentParser], None] = _no_arguments
+    api_args: Callable[[argparse.Namespace], dict] = field(default=_no_api_args)
+
+    def add_arguments(self, parser: argparse.ArgumentParser) -> None:
+        self.add_own_arguments(parser)
+        parser.add_argument(
+            "--socket",
+            metavar="PATH",
+            help="control socket (default: api.socket_path of the config)",
+        )
+        parser.add_argument(
+            "--config", metavar="FILE", help="rig config TOML (default: the demo rig)"
+        )
+        parser.add_argument("--json", action="store_true", help="print the daemon's answer as JSON")
+        parser.add_argument(
+            "--timeout",
+            type=float,
+            default=DEFAULT_TIMEOUT_S,
+            metavar="S",
+            help=f"give up waiting for the daemon after S seconds (default {DEFAULT_TIMEOUT_S:g})",
+        )
+
+    def run(self, args: argparse.Namespace) -> int:
+        result = _send(
+            self.name, _socket_path(args), self.command, self.api_args(args), args.timeout
+        )
+        if args.json:
+            import json
+
+            print(json.dumps(result, allow_nan=False))
+        elif self.command == "status":
+            _print_status(result)
+        else:
+            details = " ".join(f"{key}={value}" for key, value in result.items())
+            print(f"{self.name}: ok{' ' + details if details else ''}")
+        return 0
+
+
+VERBS = (
+    Verb("arm", "arm", "arm the drive (after the pre-arm checks)"),
+    Verb("disarm", "disarm", "disarm the drive"),
+    Verb("home", "home", "find the track ends and centre the cart"),
+    Verb("swing-up", "swing_up", "swing the pendulum up and balance it"),
+    Verb("balance", "balance", "catch and balance a pendulum held near upright"),
+    Verb(
+        "setpoint",
+        "setpoint",
+        "move the cart set-point",
+        _add_setpoint,
+        lambda args: {"x_m": args.x_m},
+    ),
+    Verb("stop", "stop", "controlled stop"),
+    Verb("estop", "estop", "emergency stop (latched until reset)"),
+    Verb("reset", "reset", "clear a latched fault or e-stop (never starts motion)"),
+    Verb(
+        "excite",
+        "excite",
+        "run an identification excitation",
+        _add_excite,
+        lambda args: {"kind": args.kind, "amplitude": args.amplitude, "duration_s": args.duration},
+    ),
+    Verb("record", "record", "start or stop recording", _add_record, _record_args),
+    Verb("status", "status", "show the daemon's status (a table, or --json)"),
+)
+
+COMMANDS = [(verb.name, verb.help, verb.add_arguments, verb.run) for verb in VERBS]
+
+
+def _socket_path(args: argparse.Namespace) -> str:
+    if args.socket:
+        return args.socket
+    from daemon.config import demo_config_path, load_config
+
+    return load_config(args.config or demo_config_path()).api.socket_path
+
+
+def _send(verb: str, socket_path: str, command: str, api_args: dict, timeout_s: float) -> dict:
+    """Run one request against the daemon; operator-facing failures become OperatorError."""
+    import asyncio
+
+    from daemon.api.client import ApiClient, ApiError
+    from daemon.errors import CommandRefused, OperatorError
+
+    async def request() -> dict:
+        async with asyncio.timeout(timeout_s):
+            async with await ApiClient.connect(socket_path, source="cli") as client:
+                return await client.request(command, api_args)
+
+    try:
+        return asyncio.run(request())
+    except CommandRefused as exc:
+        raise OperatorError(f"{verb} refused: {exc.reason}") from None
+    except ApiError as exc:
+        raise OperatorError(f"{verb}: {exc}") from None
+    except TimeoutError:
+        raise OperatorError(
+            f"{verb}: no answer from the daemon on {socket_path} within {timeout_s:g} s"
+        ) from None
+
+
+def _print_status(status: dict) -> None:
+    """Scalars and nested objects in one key/value table; each list of records in its own table."""
+    from rich.console import Console
+    from rich.table import Table
+
+    console = Console()
+    summary = Table(title="Poise status", show_header=False)
+    summary.add_column("key", style="bold")
+    summary.add_column("value")
+    record_tables = []
+    for key, value in status.items():
+        if isinstance(value, list) and value and all(isinstance(item, dict) for item in value):
+            record_tables.append(_records_table(key, value))
+        elif isinstance(value, dict):
+            for sub_key, sub_value in value.items():
+                summary.add_row(f"{key}.{sub_key}", _show(sub_value))
+        else:
+            summary.add_row(key, _show(value))
+    console.print(summary)
+    for table in record_tables:
+        console.print(table)
+
+
+def _records_table(title: str, records: list[dict]):
+    from rich.table import Table
+
+    columns: list[str] = []
+    for record in records:
+        columns.extend(key for key in record if key not in columns)
+    table = Table(title=title)
+    for column in columns:
+        table.add_column(column)
+    for record in records:
+        table.add_row(*(_show(record.get(column, "")) for column in columns))
+    return table
+
+
+def _show(value: object) -> str:
+    if value is None:
+        return "-"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, float):
+        return f"{value:.6g}"
+    if isinstance(value, list):
+        return ", ".join(_show(item) for item in value) if value else "none"
+    if isinstance(value, dict):
+        return ", ".join(f"{key}={_show(item)}" for key, item in value.items())
+    return str(value)
