@@ -32,8 +32,9 @@ Coulomb friction ``f_c = coulomb * sign(v)`` while the cart moves. At ``v = 0``
 the cart sticks: the friction needed to keep ``a = 0`` (with the pendulum's
 reaction) is ``f_s = F + m l c alpha_0 - m l s w^2``, ``alpha_0 = (m g l s +
 Q_th) / J``; if ``|f_s| <= coulomb`` the cart stays put, otherwise it slips with
-``f_c = coulomb * sign(f_s)``. The integrator snaps ``v`` to exactly 0 when it
-changes sign within a sub-step, so the stick test is reached deterministically.
+``f_c = coulomb * sign(f_s)``. When ``v`` changes sign within a sub-step the
+integrator stops the cart (as an end stop does, below), so the stick test is
+reached deterministically and the snap never adds energy.
 
 Impulses (end stops, :meth:`Plant.apply_impulse`) follow from the same mass
 matrix: ``[[Mt, -m l c], [-m l c, J]] [dv, dw] = [P_x, P_th]`` where a
@@ -398,15 +399,16 @@ class Plant:
             th += h6 * (w + 2.0 * (w2 + w3) + w4)
             w += h6 * (al1 + 2.0 * (al2 + al3) + al4)
             v_new = v + h6 * (a1 + 2.0 * (a2 + a3) + a4)
-            if stiction and (v_new > 0.0) != (v > 0.0) and v != 0.0:
-                v_new = 0.0  # velocity reversed within the sub-step: let the stick test decide
+            # velocity reversed within the sub-step: stop, and let the stick test decide
+            stop = stiction and v != 0.0 and (v_new > 0.0) != (v > 0.0)
             v = v_new
             if x >= half or x <= -half:
                 touched = True
                 if x > half or x < -half:
                     x = half if x > 0.0 else -half
-                if (v > 0.0) == (x > 0.0) and v != 0.0:
-                    w -= ml_over_jp * cos(th) * v
-                    v = 0.0
+                stop = stop or (v != 0.0 and (v > 0.0) == (x > 0.0))
+            if stop:  # as _stop_cart: keep J w - m l cos(th) v
+                w -= ml_over_jp * cos(th) * v
+                v = 0.0
         self._x, self._v, self._th, self._w = x, v, th, w
         self._end_stop_touched = touched
