@@ -1,22 +1,128 @@
-"""Interlock limits and the stop behaviour."""
+"""Interlock limits and the stop behaviour.
+
+Rates of link errors and loop overruns are judged with a token bucket: each
+event adds one, the bucket drains at ``*_rate_per_s`` and the interlock trips
+when it holds more than the burst size. A steady trickle below the rate never
+trips; a burst larger than the burst size trips at once.
+"""
 
 from __future__ import annotations
 
 from typing import Literal
 
-from pydantic import Field
+from pydantic import Field, model_validator
 
 from daemon.config.base import Section
 
 
 class InterlockSettings(Section):
-    soft_limit_inset_m: float = Field(default=0.06, ge=0.0, le=1.0, description="soft limits this far inside the switches")
+    # Track
+    soft_limit_inset_m: float = Field(
+        default=0.06, ge=0.0, le=1.0, description="soft limits this far inside the switches"
+    )
+    braking_decel_mps2: float = Field(
+        default=8.0, gt=0.0, le=200.0, description="deceleration the predictive track check assumes"
+    )
+    reaction_latency_s: float = Field(
+        default=0.01, ge=0.0, le=1.0, description="worst-case time from sample to braking"
+    )
+    # Speed
     max_cart_speed_mps: float = Field(default=1.5, gt=0.0, le=20.0)
-    max_pendulum_rate_dps: float = Field(default=1200.0, gt=0.0, le=20000.0)
-    braking_decel_mps2: float = Field(default=8.0, gt=0.0, le=200.0)
-    reaction_latency_s: float = Field(default=0.01, ge=0.0, le=1.0)
+    max_pendulum_rate_dps: float = Field(
+        default=1200.0, gt=0.0, le=20000.0, description="checked in every mode except swing-up"
+    )
+    # Drive
+    saturation_fraction: float = Field(
+        default=0.98,
+        gt=0.0,
+        le=1.0,
+        description="|drive| at or above this share of drive.limit is saturated",
+    )
+    saturation_time_s: float = Field(
+        default=1.0, gt=0.0, le=60.0, description="trip if saturated longer"
+    )
+    stall_drive_fraction: float = Field(
+        default=0.5,
+        gt=0.0,
+        le=1.0,
+        description="plausibility: drive at or above this share of drive.limit",
+    )
+    stall_speed_mps: float = Field(
+        default=0.005, gt=0.0, le=1.0, description="plausibility: ...with cart speed below this"
+    )
+    stall_time_s: float = Field(
+        default=0.5, gt=0.0, le=60.0, description="plausibility: ...for longer"
+    )
+    supply_min_v: float | None = Field(
+        default=None, ge=0.0, le=1000.0, description="unset: not checked"
+    )
+    supply_max_v: float | None = Field(
+        default=None, gt=0.0, le=1000.0, description="unset: not checked"
+    )
+    # Link and loop
+    link_timeout_samples: int = Field(
+        default=5, ge=2, le=10000, description="trip if no telemetry for this many sample periods"
+    )
+    gap_rate_per_s: float = Field(
+        default=5.0, gt=0.0, le=10000.0, description="sequence gaps tolerated per second"
+    )
+    crc_rate_per_s: float = Field(
+        default=5.0, gt=0.0, le=10000.0, description="CRC failures tolerated per second"
+    )
+    link_error_burst: int = Field(
+        default=10, ge=1, le=100000, description="bucket size for gaps and CRC failures"
+    )
+    overrun_budget_us: float = Field(
+        default=1000.0,
+        gt=0.0,
+        le=1e6,
+        description="a cycle (frame in to command out) longer than this overruns",
+    )
+    overrun_rate_per_s: float = Field(
+        default=2.0, gt=0.0, le=10000.0, description="overruns tolerated per second"
+    )
+    overrun_burst: int = Field(default=5, ge=1, le=100000, description="bucket size for overruns")
+
+    # Pre-arm checks
+    prearm_rate_tolerance: float = Field(
+        default=0.05,
+        gt=0.0,
+        le=0.5,
+        description="measured sample rate within this share of sampling.rate_hz",
+    )
+    prearm_hanging_tolerance_deg: float = Field(
+        default=3.0,
+        gt=0.0,
+        le=45.0,
+        description="pendulum this close to hanging before swing-up or excite",
+    )
+    prearm_still_rate_dps: float = Field(
+        default=5.0, gt=0.0, le=360.0, description="...and turning slower than this"
+    )
+
+    @model_validator(mode="after")
+    def _supply_range_ordered(self) -> InterlockSettings:
+        low, high = self.supply_min_v, self.supply_max_v
+        if low is not None and high is not None and low >= high:
+            raise ValueError(f"supply_min_v ({low}) must be below supply_max_v ({high})")
+        return self
 
 
 class StopSettings(Section):
     category: Literal[0, 1] = Field(default=1, description="IEC 60204-1 stop category")
-    decel_mps2: float = Field(default=3.0, gt=0.0, le=100.0)
+    decel_mps2: float = Field(
+        default=3.0, gt=0.0, le=100.0, description="category 1 ramp deceleration"
+    )
+    stopped_speed_mps: float = Field(
+        default=0.01, gt=0.0, le=1.0, description="the cart counts as stopped below this speed"
+    )
+    ramp_timeout_s: float = Field(
+        default=1.0,
+        ge=0.0,
+        le=30.0,
+        description="drive off if the cart has not stopped this long after the ramp ends",
+    )
+    after_fall: Literal["retry", "idle"] = Field(
+        default="retry",
+        description="after a fall: swing up again (up to catch.retries times) or go idle",
+    )

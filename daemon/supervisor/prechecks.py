@@ -1,0 +1,154 @@
+"""Pre-arm checks: the health a rig must show before a command that starts motion.
+
+:func:`prearm_failures` reports every failing check at once, each with a stable
+id, so the operator fixes them all in one go. The checks look at the same
+measurements and limits the interlocks watch continuously.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
+
+from daemon.supervisor.interlocks import soft_limit_m
+from daemon.supervisor.states import Command
+from protocol.messages import (
+    F_DRIVER,
+    F_ESTOP,
+    F_RESET,
+    F_SUPPLY,
+    F_WATCHDOG,
+    SW_END_STOP,
+    SW_ESTOP_BUTTON,
+    SW_LIMIT_NEG,
+    SW_LIMIT_POS,
+)
+
+if TYPE_CHECKING:
+    from daemon.config import PoiseConfig
+
+#: Commands that start motion, and so run the pre-arm checks.
+MOTION_COMMANDS = frozenset(
+    {Command.HOME, Command.ARM, Command.SWING_UP, Command.BALANCE, Command.EXCITE}
+)
+_NEEDS_HOMED = MOTION_COMMANDS - {Command.HOME}
+_NEEDS_HANGING = frozenset({Command.SWING_UP, Command.EXCITE})
+
+
+@dataclass(frozen=True, slots=True)
+class Health:
+    """What the supervisor knows about the rig when a motion command arrives."""
+
+    link_connected: bool
+    link_rate_hz: float
+    device_watchdog_active: bool
+    config_problems: tuple[str, ...]
+    homed: bool
+    x_m: float
+    theta_rad: float
+    omega_radps: float
+    switches: int
+    faults: int
+    supply_v: float  # NaN when not reported
+
+
+@dataclass(frozen=True, slots=True)
+class CheckFailure:
+    id: str
+    text: str
+
+    def __str__(self) -> str:
+        return f"{self.id}: {self.text}"
+
+
+@dataclass(frozen=True, slots=True)
+class PrecheckLimits:
+    rate_hz: float
+    rate_tolerance: float
+    soft_limit_m: float
+    supply_min_v: float
+    supply_max_v: float
+    hanging_tolerance_rad: float
+    still_rate_radps: float
+    catch_angle_rad: float
+    catch_rate_radps: float
+
+    @classmethod
+    def from_config(cls, config: PoiseConfig) -> PrecheckLimits:
+        lim = config.interlocks
+        return cls(
+            rate_hz=float(config.sampling.rate_hz),
+            rate_tolerance=lim.prearm_rate_tolerance,
+            soft_limit_m=soft_limit_m(config),
+            supply_min_v=-math.inf if lim.supply_min_v is None else lim.supply_min_v,
+            supply_max_v=math.inf if lim.supply_max_v is None else lim.supply_max_v,
+            hanging_tolerance_rad=math.radians(lim.prearm_hanging_tolerance_deg),
+            still_rate_radps=math.radians(lim.prearm_still_rate_dps),
+            catch_angle_rad=math.radians(config.catch.angle_deg),
+            catch_rate_radps=math.radians(config.catch.rate_dps),
+        )
+
+
+def wrap_angle_rad(angle_rad: float) -> float:
+    """Wrap to (-pi, pi]."""
+    wrapped = math.remainder(angle_rad, math.tau)
+    return math.pi if wrapped == -math.pi else wrapped
+
+
+def prearm_failures(command: Command, health: Health, limits: PrecheckLimits) -> list[CheckFailure]:
+    """Every check that fails for ``command``; an empty list means go."""
+    if command not in MOTION_COMMANDS:
+        return []
+    h = health
+    failures: list[CheckFailure] = []
+
+    def fail(check_id: str, text: str) -> None:
+        failures.append(CheckFailure(check_id, text))
+
+    if not h.link_connected:
+        fail("link.connected", "rig not connected")
+    elif abs(h.link_rate_hz - limits.rate_hz) > limits.rate_tolerance * limits.rate_hz:
+        fail("link.rate", f"telemetry at {h.link_rate_hz:.1f} Hz, configured {limits.rate_hz:g} Hz")
+    if not h.device_watchdog_active:
+        fail("device.watchdog", "the rig's watchdog is not active")
+    for problem in h.config_problems:
+        fail("config.valid", problem)
+    if h.switches & SW_ESTOP_BUTTON or h.faults & F_ESTOP:
+        fail("estop.released", "e-stop button pressed or its latch not cleared on the rig")
+    device_faults = h.faults & (F_DRIVER | F_SUPPLY | F_WATCHDOG | F_RESET)
+    if device_faults:
+        fail("device.faults", f"rig reports faults 0x{device_faults:04x}")
+    if h.supply_v < limits.supply_min_v or h.supply_v > limits.supply_max_v:
+        fail(
+            "supply.range",
+            f"supply {h.supply_v:.2f} V outside {limits.supply_min_v:g}..{limits.supply_max_v:g} V",
+        )
+    if h.switches & SW_END_STOP:
+        fail("track.end_stop", "cart against a hard end stop")
+    if command in _NEEDS_HOMED:
+        if not h.homed:
+            fail("cart.homed", "cart not homed")
+        elif abs(h.x_m) > limits.soft_limit_m:
+            fail(
+                "track.soft_limit", f"cart at {h.x_m:+.3f} m, outside ±{limits.soft_limit_m:.3f} m"
+            )
+        if h.switches & (SW_LIMIT_NEG | SW_LIMIT_POS):
+            fail("track.limit_switch", "a limit switch is pressed")
+    if command in _NEEDS_HANGING:
+        off_rad = abs(wrap_angle_rad(h.theta_rad - math.pi))
+        if off_rad > limits.hanging_tolerance_rad or abs(h.omega_radps) > limits.still_rate_radps:
+            fail(
+                "pendulum.hanging_still",
+                f"pendulum {math.degrees(off_rad):.1f} deg from hanging, "
+                f"turning {math.degrees(h.omega_radps):.1f} deg/s",
+            )
+    if command is Command.BALANCE:
+        angle_rad = wrap_angle_rad(h.theta_rad)
+        if abs(angle_rad) > limits.catch_angle_rad or abs(h.omega_radps) > limits.catch_rate_radps:
+            fail(
+                "pendulum.in_catch_window",
+                f"pendulum {math.degrees(angle_rad):+.1f} deg from upright, turning "
+                f"{math.degrees(h.omega_radps):.0f} deg/s: hold it near upright to catch",
+            )
+    return failures

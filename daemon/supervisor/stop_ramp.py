@@ -1,0 +1,45 @@
+"""The category 1 stop (IEC 60204-1): a cart velocity set-point ramped to zero at a fixed deceleration.
+
+The ramp starts from the measured cart velocity so the set-point never jumps;
+a cart velocity loop (in the control cycle) follows it. The stop is complete
+once the ramp has reached zero and the measured speed is below the stopped
+threshold; if the cart has still not stopped ``timeout_s`` after the ramp
+ended, the stop is overdue and the drive must be switched off anyway.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+
+@dataclass(frozen=True, slots=True)
+class StopRamp:
+    t0_s: float
+    v0_mps: float
+    decel_mps2: float
+    stopped_speed_mps: float
+    timeout_s: float
+
+    @property
+    def duration_s(self) -> float:
+        """Time for the set-point to reach zero: |v0| / a."""
+        return abs(self.v0_mps) / self.decel_mps2
+
+    @property
+    def distance_m(self) -> float:
+        """Signed distance the set-point travels before it reaches zero: v0 |v0| / (2a)."""
+        return self.v0_mps * abs(self.v0_mps) / (2.0 * self.decel_mps2)
+
+    def velocity_setpoint(self, t_s: float) -> float:
+        """The velocity set-point at ``t_s``: v0 reduced by a·t toward zero, never past it."""
+        speed = abs(self.v0_mps) - self.decel_mps2 * max(0.0, t_s - self.t0_s)
+        return math.copysign(speed, self.v0_mps) if speed > 0.0 else 0.0
+
+    def complete(self, t_s: float, v_mps: float) -> bool:
+        """True once the ramp has ended and the cart is measured as stopped."""
+        return t_s - self.t0_s >= self.duration_s and abs(v_mps) < self.stopped_speed_mps
+
+    def overdue(self, t_s: float) -> bool:
+        """True when the cart has had ``timeout_s`` beyond the ramp's end to stop."""
+        return t_s - self.t0_s > self.duration_s + self.timeout_s
