@@ -11,7 +11,25 @@ UNIX_SOCKET_PATH_MAX_BYTES = 107
 
 
 class RecordingSettings(Section):
-    db_path: str = Field(default="poise-runs.db", min_length=1)
+    """The rig's run store (one SQLite file per rig) and the recorder's queue in front of it."""
+
+    db_path: str = Field(
+        default="poise-runs.db",
+        min_length=1,
+        description="relative paths are from the working directory",
+    )
+    queue_capacity: int = Field(
+        default=65_536, ge=1_000, le=10_000_000, description="samples held while the disk is slow"
+    )
+    flush_interval_ms: float = Field(
+        default=50.0,
+        gt=0.0,
+        le=100.0,
+        description="longest wait before queued samples are committed",
+    )
+    max_db_mb: float | None = Field(
+        default=None, gt=0.0, description="stop recording (as for a full disk) beyond this size"
+    )
 
 
 class ApiSettings(Section):
@@ -21,7 +39,9 @@ class ApiSettings(Section):
     ``max_status_rate_hz`` caps what it may ask for. ``max_line_bytes`` bounds one
     request line (a longer line gets an error reply and the connection is closed).
     ``client_queue_lines`` bounds each client's outgoing queue: status lines beyond
-    it are dropped and counted, a reply beyond it disconnects the client.
+    it are dropped and counted; when it is full of replies the client's further
+    requests wait, and a client that reads nothing for ``stalled_client_timeout_s``
+    is disconnected.
     """
 
     socket_path: str = Field(default="/tmp/poise.sock", min_length=1)
@@ -30,6 +50,7 @@ class ApiSettings(Section):
     max_line_bytes: int = Field(default=65536, ge=1024, le=1 << 20)
     client_queue_lines: int = Field(default=64, ge=4, le=65536)
     max_clients: int = Field(default=16, ge=1, le=256)
+    stalled_client_timeout_s: float = Field(default=10.0, gt=0.0, le=3600.0)
 
     @field_validator("socket_path")
     @classmethod

@@ -102,9 +102,7 @@ class Migration(NamedTuple):
     sql: str
 
 
-MIGRATIONS: tuple[Migration, ...] = (
-    Migration(0, "create runs, samples and events", _SCHEMA_V1),
-)
+MIGRATIONS: tuple[Migration, ...] = (Migration(0, "create runs, samples and events", _SCHEMA_V1),)
 SCHEMA_VERSION = len(MIGRATIONS)
 
 

@@ -68,6 +68,7 @@ from operator import itemgetter
 from pathlib import Path
 from typing import Literal, Self
 
+from daemon.config.service import RecordingSettings
 from daemon.recording.errors import RecordingError
 from daemon.recording.schema import MODE_INDEX, SAMPLE_COLUMN_NAMES, T_HOST_INDEX
 from daemon.recording.store import (
@@ -227,6 +228,24 @@ class Recorder:
         self._thread = threading.Thread(target=self._write_loop, name="poise-recorder", daemon=True)
         self._thread.start()
 
+    @classmethod
+    def from_settings(
+        cls,
+        settings: RecordingSettings,
+        *,
+        host_clock_ns: Callable[[], int] = time.monotonic_ns,
+        on_error: Callable[[str], None] | None = None,
+    ) -> Recorder:
+        """A recorder as the rig config's ``[recording]`` section describes it."""
+        return cls(
+            settings.db_path,
+            queue_capacity=settings.queue_capacity,
+            flush_interval_s=settings.flush_interval_ms / 1000.0,
+            max_db_bytes=None if settings.max_db_mb is None else int(settings.max_db_mb * 1e6),
+            host_clock_ns=host_clock_ns,
+            on_error=on_error,
+        )
+
     # ----------------------------------------------------------------- producer side
 
     def put_sample(self, row: tuple) -> bool:
@@ -301,7 +320,9 @@ class Recorder:
         if self._closed:
             return
         if self._open_run_id is not None:
-            self.put_event("run.not_ended", "recorder", {"reason": "recorder closed with the run open"})
+            self.put_event(
+                "run.not_ended", "recorder", {"reason": "recorder closed with the run open"}
+            )
             self.end_run(ABORTED)
         self._closing = True
         self._wake.set()
@@ -430,7 +451,13 @@ class Recorder:
             self._run.events_written += 1
         self._conn.execute(
             "INSERT INTO events (run_id, t_host_ns, kind, source, data_json) VALUES (?, ?, ?, ?, ?)",
-            (run_id, event.t_host_ns, event.kind, event.source, json.dumps(event.data, default=str)),
+            (
+                run_id,
+                event.t_host_ns,
+                event.kind,
+                event.source,
+                json.dumps(event.data, default=str),
+            ),
         )
         self._batch_events += 1
 
@@ -468,7 +495,12 @@ class Recorder:
         self._store_progress(run, end)
         self._conn.execute(
             "UPDATE runs SET outcome = ?, ended_unix_ns = ?, summary_json = ? WHERE run_id = ?",
-            (end.outcome, end.ended_unix_ns, json.dumps(end.summary, default=str), run.start.run_id),
+            (
+                end.outcome,
+                end.ended_unix_ns,
+                json.dumps(end.summary, default=str),
+                run.start.run_id,
+            ),
         )
         self._run = None
 
