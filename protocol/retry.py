@@ -1,0 +1,82 @@
+"""Retry bookkeeping for acknowledged host commands; pure, the caller passes the time in.
+
+The link sends an acked command (Configure, Arm, Stop, ClearFaults, Identify), calls
+``track(command, now_s)``, passes every received Reply/DeviceHello to ``resolve``, and calls
+``poll(now_s)`` regularly: it returns the commands to send again (same seq, so the device's
+Reply matches) and the ones that ran out of attempts.
+"""
+
+from dataclasses import dataclass, field
+
+from protocol.messages import ACKED_MESSAGES, DeviceHello, Identify, Message, Reply
+
+
+@dataclass
+class PendingCommand:
+    """An acked command waiting for its answer."""
+
+    command: Message
+    attempts: int  # transmissions so far
+    deadline_s: float  # when to send again (or give up) if still unanswered
+
+
+@dataclass(frozen=True, slots=True)
+class RetryDue:
+    """What ``poll`` found: commands to send again and commands given up on."""
+
+    resend: list[Message] = field(default_factory=list)
+    failed: list[Message] = field(default_factory=list)
+
+
+class RetryTracker:
+    """Pending acked commands keyed by (type id, seq)."""
+
+    def __init__(self, timeout_s: float, max_attempts: int) -> None:
+        if timeout_s <= 0 or max_attempts < 1:
+            raise ValueError(
+                f"retry timeout_s must be > 0 and max_attempts >= 1, got {timeout_s}, {max_attempts}"
+            )
+        self.timeout_s = timeout_s
+        self.max_attempts = max_attempts
+        self._pending: dict[tuple[int, int], PendingCommand] = {}
+
+    @property
+    def pending(self) -> list[Message]:
+        """Commands still waiting for an answer, oldest first."""
+        return [entry.command for entry in self._pending.values()]
+
+    def track(self, command: Message, now_s: float) -> None:
+        """Register the first transmission of an acked command at time ``now_s``."""
+        if type(command) not in ACKED_MESSAGES:
+            raise ValueError(f"{type(command).__name__} is not an acknowledged command")
+        key = (command.TYPE_ID, command.seq)
+        self._pending[key] = PendingCommand(command, 1, now_s + self.timeout_s)
+
+    def resolve(self, answer: Message) -> Message | None:
+        """Match a Reply (or a DeviceHello, which answers Identify); return the command answered.
+
+        Returns None when ``answer`` answers nothing pending (a late duplicate, or another type).
+        """
+        if isinstance(answer, Reply):
+            entry = self._pending.pop((answer.for_type, answer.for_seq), None)
+            return entry.command if entry is not None else None
+        if isinstance(answer, DeviceHello):
+            identifies = [key for key in self._pending if key[0] == Identify.TYPE_ID]
+            answered = [self._pending.pop(key).command for key in identifies]
+            return answered[0] if answered else None
+        return None
+
+    def poll(self, now_s: float) -> RetryDue:
+        """Commands whose deadline has passed: resend while attempts remain, else give up."""
+        due = RetryDue()
+        for key, entry in list(self._pending.items()):
+            if now_s < entry.deadline_s:
+                continue
+            if entry.attempts >= self.max_attempts:
+                del self._pending[key]
+                due.failed.append(entry.command)
+            else:
+                entry.attempts += 1
+                entry.deadline_s = now_s + self.timeout_s
+                due.resend.append(entry.command)
+        return due
