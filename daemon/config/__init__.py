@@ -21,6 +21,7 @@ from daemon.config.control import (
     HomingSettings,
     SwingUpSettings,
 )
+from daemon.config.plant import plant_params
 from daemon.config.rig import (
     CartSettings,
     DriveSettings,
@@ -33,7 +34,14 @@ from daemon.config.rig import (
 from daemon.config.safety import InterlockSettings, StopSettings
 from daemon.config.service import ApiSettings, RecordingSettings
 
-__all__ = ["PoiseConfig", "ConfigError", "load_config", "demo_config_path", "parse_config"]
+__all__ = [
+    "PoiseConfig",
+    "ConfigError",
+    "load_config",
+    "demo_config_path",
+    "parse_config",
+    "plant_params",
+]
 
 
 class PoiseConfig(Section):
