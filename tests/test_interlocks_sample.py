@@ -49,7 +49,7 @@ def test_soft_limit_is_half_the_track_less_switch_and_soft_insets():
 
 @pytest.mark.parametrize(
     ("mph", "metres"),
-    # UK Highway Code, rule 126, "typical stopping distances" table (thinking + braking), rounded to
+    # UK Highway Code, rule 126, "typical stopping distances" table (figures from memory) (thinking + braking), rounded to
     # whole metres (within 1 m: the table's metres are its feet figures, rounded); it is built on 1 ft of thinking distance per mph and mph^2/20 ft of braking, i.e.
     # a reaction time of 0.3048/0.44704 s and a deceleration of 0.44704^2*20/(2*0.3048) m/s^2.
     [(20, 12), (30, 23), (40, 36), (50, 53), (60, 73), (70, 96)],
