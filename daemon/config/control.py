@@ -4,14 +4,28 @@ from __future__ import annotations
 
 from typing import Literal
 
-from pydantic import Field
+from pydantic import Field, model_validator
 
 from daemon.config.base import Section
 
 
 class EstimatorSettings(Section):
+    """How velocities are estimated; see daemon/control/estimation.py for the trade-off."""
+
     velocity: Literal["filtered_difference", "kalman"] = "kalman"
     difference_cutoff_hz: float = Field(default=40.0, gt=0.0, le=5000.0)
+    kalman_cart_accel_noise_mps2: float = Field(
+        default=2.0, gt=0.0, le=1000.0, description="unmodelled cart acceleration, rms"
+    )
+    kalman_pendulum_accel_noise_radps2: float = Field(
+        default=10.0, gt=0.0, le=10000.0, description="unmodelled pendulum acceleration, rms"
+    )
+    kalman_region_deg: float = Field(
+        default=30.0, gt=0.0, le=90.0, description="Kalman filter used this close to upright"
+    )
+    encoder_noise_counts: float = Field(
+        default=0.0, ge=0.0, le=1000.0, description="encoder noise beyond quantisation, counts rms"
+    )
 
 
 class BalanceSettings(Section):
@@ -20,15 +34,44 @@ class BalanceSettings(Section):
     q_diag: tuple[float, float, float, float] = (5000.0, 0.0, 100.0, 0.0)
     r: float = Field(default=1.0, gt=0.0)
     integral_action: bool = False
-    integral_weight: float = Field(default=100.0, ge=0.0)
-    gains: tuple[float, float, float, float] | None = Field(
-        default=None, description="written by `poise design --write`; designed at start-up if absent"
+    integral_weight: float = Field(default=100.0, ge=0.0, description="LQR weight on the integral of x")
+    gains: tuple[float, ...] | None = Field(
+        default=None,
+        description="K for [x, v, theta, omega] (plus the integral gain last with integral_action); "
+        "written by `poise design --write`; designed at start-up if absent",
     )
+    blend_samples: int = Field(
+        default=10, ge=1, le=10000, description="bumpless transfer: command offset decays over this many samples"
+    )
+    step_m: float = Field(default=0.1, gt=0.0, le=5.0, description="set-point step for `poise design`")
+
+    @model_validator(mode="after")
+    def _gains_match_structure(self) -> BalanceSettings:
+        if self.gains is not None:
+            wanted = 5 if self.integral_action else 4
+            if len(self.gains) != wanted:
+                raise ValueError(
+                    f"gains must have {wanted} entries with integral_action = "
+                    f"{str(self.integral_action).lower()} (got {len(self.gains)})"
+                )
+        return self
 
 
 class SwingUpSettings(Section):
+    """Swing-up: ``energy`` (Åström-Furuta with cart feedback) or ``pump`` (set-point switching)."""
+
     law: Literal["energy", "pump"] = "energy"
     max_accel_mps2: float = Field(default=4.0, gt=0.0, le=100.0)
+    energy_gain: float = Field(
+        default=20.0, gt=0.0, le=1e4, description="cart accel in g per unit of energy error / (2 m g l)"
+    )
+    position_gain_per_s2: float = Field(default=8.0, ge=0.0, le=1e4)
+    velocity_gain_per_s: float = Field(default=4.0, ge=0.0, le=1e4)
+    pump_offset_m: float = Field(default=0.1, gt=0.0, le=5.0, description="set-points at ±this")
+    pump_bandwidth_hz: float = Field(default=2.5, gt=0.0, le=100.0, description="inner position loop")
+    track_use_fraction: float = Field(
+        default=0.7, gt=0.0, le=1.0, description="swing-up keeps the cart within this share of the soft limits"
+    )
 
 
 class CatchSettings(Section):
@@ -37,7 +80,16 @@ class CatchSettings(Section):
     fall_angle_deg: float = Field(default=35.0, gt=0.0, le=90.0, description="balance lost outside this")
     retries: int = Field(default=2, ge=0, le=20)
 
+    @model_validator(mode="after")
+    def _fall_outside_catch(self) -> CatchSettings:
+        if self.fall_angle_deg <= self.angle_deg:
+            raise ValueError(
+                f"fall_angle_deg ({self.fall_angle_deg}) must be larger than angle_deg ({self.angle_deg})"
+            )
+        return self
+
 
 class HomingSettings(Section):
     speed_mps: float = Field(default=0.05, gt=0.0, le=2.0)
     length_tolerance_m: float = Field(default=0.02, gt=0.0, le=1.0)
+    centre_tolerance_m: float = Field(default=0.003, gt=0.0, le=0.1, description="done this close to centre")

@@ -1,0 +1,106 @@
+"""The daemon's state estimate each sample: counts in, ``(x_m, v_mps, theta_rad, omega_radps)`` out.
+
+Positions come straight from the encoders (:mod:`daemon.control.encoders`);
+theta is wrapped to (-pi, pi]. Velocities come from one of two estimators
+(``estimator.velocity`` in the rig config):
+
+``filtered_difference``
+    finite difference through a first-order low-pass (:mod:`.velocity_filter`),
+    valid everywhere (swing-up, homing, balance).
+``kalman``
+    the steady-state Kalman filter on the linear model about upright
+    (:mod:`.kalman`), used while the pendulum is within ``kalman_region_deg``
+    of upright, where that model holds; elsewhere the filtered difference is
+    used, and the Kalman filter restarts from the filtered-difference estimate
+    each time the pendulum enters the region (so the estimate does not jump).
+
+Noise/lag trade-off, measured on the plant model balancing with the LQR
+(``tests/test_control_estimation.py::test_noise_and_lag_figures``; Kestrel-1,
+500 Hz, 4096-count pendulum encoder, 173852 counts/m cart encoder, encoder
+noise 0.5 counts rms, a 1.5 Hz cart set-point square wave of ±5 cm)::
+
+    estimator                     cart v rms error   lag      pendulum w rms error   lag
+    raw difference (no filter)      3.2 mm/s         1.0 ms      0.95 rad/s           1.0 ms
+    filtered difference, 40 Hz      2.2 mm/s         4.9 ms      0.24 rad/s           4.9 ms
+    filtered difference, 15 Hz      6.6 mm/s        11.6 ms      0.12 rad/s          11.6 ms
+    Kalman (defaults)               1.0 mm/s         0.0 ms      0.04 rad/s           0.0 ms
+
+(Lag: the shift that best aligns estimate and truth, in whole samples.) The
+filtered difference buys noise reduction with lag ~``1/(2 pi fc)``; the Kalman
+filter, knowing the drive and the dynamics, is both quieter and without lag
+near upright, but only there.
+"""
+
+from __future__ import annotations
+
+import math
+
+from daemon.control.encoders import EncoderScaling, wrap_angle
+from daemon.control.kalman import KalmanGains, SteadyStateKalman
+from daemon.control.velocity_filter import FilteredDifference
+
+__all__ = ["StateEstimator"]
+
+State = tuple[float, float, float, float]
+
+
+class StateEstimator:
+    """Encoder readings and the applied drive to the state vector, once per sample."""
+
+    __slots__ = (
+        "_cart_rate",
+        "_kalman",
+        "_kalman_active",
+        "_pendulum_rate",
+        "_region_rad",
+        "scaling",
+        "theta_unwrapped_rad",
+    )
+
+    def __init__(
+        self,
+        scaling: EncoderScaling,
+        dt_s: float,
+        cutoff_hz: float,
+        kalman: KalmanGains | None = None,
+        kalman_region_rad: float = math.radians(30.0),
+    ):
+        self.scaling = scaling
+        self._cart_rate = FilteredDifference(cutoff_hz, dt_s)
+        self._pendulum_rate = FilteredDifference(cutoff_hz, dt_s)
+        self._kalman = SteadyStateKalman(kalman) if kalman is not None else None
+        self._region_rad = kalman_region_rad
+        self._kalman_active = False
+        self.theta_unwrapped_rad = math.pi
+
+    def reset(self, cart_reading: int, pendulum_reading: int,
+              v_mps: float = 0.0, omega_radps: float = 0.0) -> State:
+        """Start from these readings and rates (at rest unless given)."""
+        x_m, theta = self.scaling.update(cart_reading, pendulum_reading)
+        self._cart_rate.reset(x_m, v_mps)
+        self._pendulum_rate.reset(theta, omega_radps)
+        self._kalman_active = False
+        self.theta_unwrapped_rad = theta
+        return x_m, v_mps, wrap_angle(theta), omega_radps
+
+    def update(self, cart_reading: int, pendulum_reading: int, applied_drive: float) -> State:
+        x_m, theta = self.scaling.update(cart_reading, pendulum_reading)
+        self.theta_unwrapped_rad = theta
+        v = self._cart_rate.update(x_m)
+        w = self._pendulum_rate.update(theta)
+        theta_w = wrap_angle(theta)
+        kalman = self._kalman
+        if kalman is None:
+            return x_m, v, theta_w, w
+        if -self._region_rad < theta_w < self._region_rad:
+            if not self._kalman_active:
+                kalman.reset((x_m, v, theta_w, w))
+                self._kalman_active = True
+                return x_m, v, theta_w, w
+            return kalman.update(x_m, theta_w, applied_drive)
+        self._kalman_active = False
+        return x_m, v, theta_w, w
+
+    @property
+    def kalman_active(self) -> bool:
+        return self._kalman_active

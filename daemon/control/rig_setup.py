@@ -1,0 +1,76 @@
+"""Build the configured estimator and controllers for one rig (design work done once, at start-up)."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from daemon.config import PoiseConfig
+from daemon.config.plant import plant_params
+from daemon.control.balance import BalanceController, BalanceDesign, design_balance
+from daemon.control.catch import CatchWindow
+from daemon.control.encoders import EncoderScaling
+from daemon.control.estimation import StateEstimator
+from daemon.control.kalman import design_kalman
+from daemon.control.swing_energy import EnergySwingUp
+from daemon.control.swing_pump import PumpSwingUp
+from sim_device.plant import PlantParams
+
+__all__ = ["ControlSet", "build_control_set", "soft_limit_m"]
+
+
+def soft_limit_m(config: PoiseConfig) -> float:
+    """Distance from the centre to the soft travel limits: inside the limit switches by the interlock inset."""
+    track = config.track
+    return track.length_m / 2 - track.switch_inset_m - config.interlocks.soft_limit_inset_m
+
+
+@dataclass
+class ControlSet:
+    params: PlantParams
+    design: BalanceDesign
+    estimator: StateEstimator
+    balance: BalanceController
+    swing_up: EnergySwingUp | PumpSwingUp
+    window: CatchWindow
+    soft_limit_m: float
+    dt_s: float
+
+
+def build_control_set(config: PoiseConfig, law: str | None = None) -> ControlSet:
+    """Everything the control cycle runs, from ``config``; ``law`` overrides ``swing_up.law``."""
+    params = plant_params(config)
+    rate = config.sampling.rate_hz
+    dt = 1.0 / rate
+    design = design_balance(params, config.balance, rate)
+    scaling = EncoderScaling(config.encoders.cart_counts_per_m, config.encoders.pendulum_counts_per_rev)
+    est = config.estimator
+    kalman = None
+    if est.velocity == "kalman":
+        kalman = design_kalman(
+            design.ad, design.bd, dt, scaling.cart_quantum_m, scaling.pendulum_quantum_rad,
+            est.kalman_cart_accel_noise_mps2, est.kalman_pendulum_accel_noise_radps2,
+            est.encoder_noise_counts,
+        )
+    estimator = StateEstimator(scaling, dt, est.difference_cutoff_hz, kalman, math.radians(est.kalman_region_deg))
+    soft = soft_limit_m(config)
+    travel = soft * config.swing_up.track_use_fraction
+    law = law or config.swing_up.law
+    if law == "energy":
+        swing: EnergySwingUp | PumpSwingUp = EnergySwingUp(params, config.swing_up, travel)
+    elif law == "pump":
+        mgl = params.pendulum_mass_kg * params.com_distance_m * params.gravity_mps2
+        band = mgl * (1.0 - math.cos(math.radians(config.catch.angle_deg) / 2))
+        swing = PumpSwingUp(params, config.swing_up, travel, dt, band)
+    else:
+        raise ValueError(f"swing_up.law: unknown law {law!r} (energy or pump)")
+    return ControlSet(
+        params=params,
+        design=design,
+        estimator=estimator,
+        balance=BalanceController(design, config.balance.blend_samples),
+        swing_up=swing,
+        window=CatchWindow(config.catch),
+        soft_limit_m=soft,
+        dt_s=dt,
+    )

@@ -1,0 +1,215 @@
+"""Swing-up B for short tracks: the cart set-point alternates between two positions inside ``±pump_offset_m``.
+
+The inner loop is a critically damped position loop on cart acceleration
+(``a = wc^2 (x_sp - x) - 2 wc v``, ``wc = 2 pi pump_bandwidth_hz``, saturated
+and kept inside the track by :class:`TrackGuard`), turned into a drive
+command through the inverse plant model.
+
+Which set-point, and when. Energy enters the pendulum at the rate ``m l a
+cos(th) w`` (see :mod:`.swing_energy`). A move between set-points first
+accelerates the cart toward the new one, then brakes; both halves pump energy
+in when the move is centred on the instant where ``w cos th`` changes sign and
+goes against the swing direction. With ``p = th - pi`` (wrapped, 0 hanging):
+
+- swing below horizontal: that instant is the turning point, where the angular
+  velocity changes sign;
+- swing past horizontal: it is the crossing of the horizontal on the way out
+  (angle threshold ``|p| = pi/2``); the cart then stays put for the rest of the
+  half swing.
+
+Each half swing (between crossings of the hanging position) therefore gets one
+move, to ``x_sp = -offset * sign(w)``, triggered while the pendulum moves
+outward (``sign w = sign p``) once ``|p|`` passes the threshold::
+
+    |p| >= min( A cos(2 pi L / T),  pi/2 - |w| L )      or w has changed sign already
+
+``A`` is the amplitude of the last swing, ``T`` the period measured online as
+twice the time between successive crossings of the hanging position, and the
+lead ``L`` the measured time from a switch until the cart passes the midpoint
+of its move (half the travel time), so the move is centred on the instant.
+
+Near the top the moves shrink so the energy lands on the upright energy: the
+travel of each move is the full ``2 offset`` scaled by ``deficit / gain``
+(at most 1), where ``gain`` is the energy the last full-length move added. Once
+the energy is within ``energy_band`` of upright, switching stops and the
+pendulum coasts into the catch window; above it, the same moves run reversed
+and take energy out.
+"""
+
+from __future__ import annotations
+
+import math
+
+from daemon.config.control import SwingUpSettings
+from daemon.control.drive_model import AccelerationDrive, clamp
+from daemon.control.encoders import wrap_angle
+from daemon.control.track_guard import TrackGuard
+from sim_device.plant import PlantParams
+
+__all__ = ["PumpSwingUp"]
+
+# Step response of a critically damped second-order loop reaches half way at wc*t = 1.678
+# (solve 1 - (1 + s) exp(-s) = 1/2): the lead before any move has been measured.
+_HALF_RISE_WC = 1.678
+# A crossing of the hanging position counts only after the swing has gone this far out.
+_CROSSING_HYSTERESIS_RAD = math.radians(2.0)
+_HALF_PI = 0.5 * math.pi
+
+
+class PumpSwingUp:
+    """Per-sample set-point pumping: ``update(x, v, theta, omega) -> drive``."""
+
+    __slots__ = (
+        "_2wc",
+        "_a_max",
+        "_armed",
+        "_drive",
+        "_dt",
+        "_energy_band",
+        "_gain_per_m",
+        "_guard",
+        "_half_jp",
+        "_last_crossing_t",
+        "_last_p",
+        "_mgl",
+        "_move_energy",
+        "_moved_this_half",
+        "_offset",
+        "_peak",
+        "_set_point",
+        "_switch_t",
+        "_switch_x",
+        "_t",
+        "_travel_pending",
+        "_wc2",
+        "amplitude_rad",
+        "half_period_s",
+        "last_drive",
+        "lead_s",
+        "switches",
+    )
+
+    def __init__(self, params: PlantParams, settings: SwingUpSettings, travel_limit_m: float,
+                 dt_s: float, energy_band_j: float):
+        if settings.pump_offset_m >= travel_limit_m:
+            raise ValueError(
+                f"swing_up.pump_offset_m: {settings.pump_offset_m} m is not inside the swing-up "
+                f"travel limit ±{travel_limit_m:.3f} m"
+            )
+        self._drive = AccelerationDrive(params)
+        self._a_max = settings.max_accel_mps2
+        self._guard = TrackGuard(travel_limit_m, 0.8 * settings.max_accel_mps2)
+        wc = 2.0 * math.pi * settings.pump_bandwidth_hz
+        self._wc2 = wc * wc
+        self._2wc = 2.0 * wc
+        self._offset = settings.pump_offset_m
+        self._dt = dt_s
+        self._half_jp = 0.5 * params.pivot_inertia_kgm2
+        self._mgl = params.pendulum_mass_kg * params.com_distance_m * params.gravity_mps2
+        self._energy_band = energy_band_j
+        self.lead_s = _HALF_RISE_WC / wc
+        self.half_period_s = math.pi * math.sqrt(params.pivot_inertia_kgm2 / self._mgl)
+        self.last_drive = 0.0
+        self.reset((0.0, 0.0, math.pi, 0.0), 0.0)
+
+    def reset(self, state: tuple[float, float, float, float], last_drive: float) -> None:
+        """Start pumping from the measured state; the set-point starts where the cart is."""
+        self._t = 0.0
+        self._set_point = state[0]
+        self._switch_t = 0.0
+        self._switch_x = state[0]
+        self._travel_pending = False
+        self._last_crossing_t = None
+        self._armed = False
+        self._last_p = wrap_angle(state[2] - math.pi)
+        self._moved_this_half = False
+        self.amplitude_rad = abs(self._last_p)
+        self._peak = 0.0
+        self._move_energy = None
+        self._gain_per_m = 0.0
+        self.last_drive = last_drive
+        self.switches = 0
+
+    def energy(self, theta: float, omega: float) -> float:
+        """Pendulum energy relative to upright at rest, joules."""
+        return self._half_jp * omega * omega + self._mgl * (math.cos(theta) - 1.0)
+
+    @property
+    def set_point_m(self) -> float:
+        return self._set_point
+
+    def _track_swing(self, p: float) -> None:
+        """Crossings of the hanging position: half period and amplitude of the swing just ended."""
+        magnitude = abs(p)
+        self._peak = max(self._peak, magnitude)
+        if magnitude > _CROSSING_HYSTERESIS_RAD:
+            self._armed = True
+        if self._armed and (p >= 0.0) != (self._last_p >= 0.0):
+            if self._last_crossing_t is not None:
+                half = self._t - self._last_crossing_t
+                if 0.3 * self.half_period_s < half < 3.0 * self.half_period_s:
+                    self.half_period_s = half
+            self._last_crossing_t = self._t
+            self.amplitude_rad = self._peak
+            self._peak = 0.0
+            self._armed = False
+            self._moved_this_half = False
+        self._last_p = p
+
+    def _track_move(self, x: float, energy: float) -> None:
+        """Lead: time from a switch until the cart passes the middle of its move."""
+        if not self._travel_pending:
+            return
+        midpoint = 0.5 * (self._switch_x + self._set_point)
+        if (x - midpoint) * (self._set_point - self._switch_x) >= 0.0:
+            if abs(self._set_point - self._switch_x) > self._offset:
+                self.lead_s = self._t - self._switch_t
+            self._travel_pending = False
+
+    def _switch(self, x: float, direction: float, energy_error: float) -> None:
+        distance = 2.0 * self._offset
+        if self._gain_per_m > 0.0:
+            distance = min(distance, abs(energy_error) / self._gain_per_m)
+        self._set_point = clamp(x + direction * distance, self._offset)
+        if self._move_energy is not None:
+            moved = abs(self._switch_x - x)
+            gained = abs(self._move_energy[1] - self._move_energy[0])
+            if moved > self._offset:
+                self._gain_per_m = gained / moved
+        self._switch_t = self._t
+        self._switch_x = x
+        self._travel_pending = True
+        self._moved_this_half = True
+        self.switches += 1
+
+    def _due(self, p: float, omega: float) -> bool:
+        if self._moved_this_half:
+            return False
+        if (omega >= 0.0) != (p >= 0.0):
+            return self._peak > _CROSSING_HYSTERESIS_RAD  # turned back before the threshold
+        lead = self.lead_s
+        turning = self.amplitude_rad * math.cos(math.pi * lead / self.half_period_s)
+        horizontal = _HALF_PI - abs(omega) * lead
+        return abs(p) >= min(turning, horizontal)
+
+    def update(self, x: float, v: float, theta: float, omega: float) -> float:
+        self._t += self._dt
+        p = wrap_angle(theta - math.pi)
+        energy = self.energy(theta, omega)
+        self._track_swing(p)
+        self._track_move(x, energy)
+        error = -energy
+        if abs(error) > self._energy_band and self._due(p, omega):
+            outward = 1.0 if p >= 0.0 else -1.0
+            direction = -outward if error > 0.0 else outward
+            if self._move_energy is not None:
+                self._move_energy = (self._move_energy[0], energy)
+            self._switch(x, direction, error)
+            self._move_energy = (energy, energy)
+        elif self._move_energy is not None:
+            self._move_energy = (self._move_energy[0], energy)
+        a = self._wc2 * (self._set_point - x) - self._2wc * v
+        a = self._guard.limit(clamp(a, self._a_max), x, v)
+        drive = self._drive.command_for(a, v, math.sin(theta), math.cos(theta), omega)
+        self.last_drive = drive
+        return drive
