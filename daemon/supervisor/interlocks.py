@@ -143,6 +143,11 @@ _ESTOP_BITS_SWITCHES = SW_ESTOP_BUTTON
 _ESTOP_BITS_FAULTS = F_ESTOP
 _TRIP_FAULTS = F_DRIVER | F_SUPPLY | F_WATCHDOG | F_RESET
 _LIMIT_SWITCHES = SW_LIMIT_NEG | SW_LIMIT_POS
+# Plain ints for the hot path: IntFlag arithmetic costs microseconds per operation.
+_TRACK = int(Checks.TRACK)
+_SWITCHES = int(Checks.SWITCHES)
+_MOTION = int(Checks.MOTION)
+_PENDULUM_RATE = int(Checks.PENDULUM_RATE)
 
 
 class SampleInterlocks:
@@ -185,7 +190,7 @@ class SampleInterlocks:
         :class:`Checks` mask for the present state.
         """
         lim = self.limits
-        motion = checks & Checks.MOTION
+        motion = checks & _MOTION
         # Sustained conditions: update the start times first, whatever trips below.
         if motion and abs(drive) >= lim.saturation_drive:
             if self._saturated_since_s == INF:
@@ -216,7 +221,7 @@ class SampleInterlocks:
                 "cart against a hard end stop",
                 {"x_m": x_m, "v_mps": v_mps},
             )
-        if checks & Checks.SWITCHES and switches & _LIMIT_SWITCHES:
+        if checks & _SWITCHES and switches & _LIMIT_SWITCHES:
             side = "negative" if switches & SW_LIMIT_NEG else "positive"
             return Trip(
                 "track.limit_switch",
@@ -241,7 +246,7 @@ class SampleInterlocks:
                 {"drive": drive, "v_mps": v_mps, "held_s": t_s - self._stalled_since_s},
             )
         # Controlled stop.
-        if checks & Checks.TRACK:
+        if checks & _TRACK:
             if abs(x_m) > lim.soft_limit_m:
                 return Trip(
                     "track.soft_limit",
@@ -280,7 +285,7 @@ class SampleInterlocks:
                         "limit_s": lim.saturation_time_s,
                     },
                 )
-        if checks & Checks.PENDULUM_RATE and abs(omega_radps) > lim.max_pendulum_rate_radps:
+        if checks & _PENDULUM_RATE and abs(omega_radps) > lim.max_pendulum_rate_radps:
             return Trip(
                 "pendulum.overspeed",
                 Action.CONTROLLED_STOP,

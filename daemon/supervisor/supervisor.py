@@ -33,7 +33,7 @@ from protocol.messages import SW_ESTOP_BUTTON
 _ALL_CHECKS = Checks.TRACK | Checks.SWITCHES | Checks.MOTION | Checks.PENDULUM_RATE
 
 #: Per-sample checks by state; the rig's e-stop and fault flags are checked in every state.
-CHECKS_BY_STATE: dict[State, int] = {
+CHECKS_BY_STATE: dict[State, Checks] = {
     State.DISCONNECTED: Checks.NONE,
     State.IDLE: Checks.NONE,
     State.HOMING: Checks.MOTION | Checks.PENDULUM_RATE,  # position unknown; runs onto the switches
@@ -45,6 +45,11 @@ CHECKS_BY_STATE: dict[State, int] = {
     State.FAULT: Checks.NONE,
     State.ESTOP: Checks.NONE,
 }
+
+_CHECK_MASKS = {
+    state: int(mask) for state, mask in CHECKS_BY_STATE.items()
+}  # plain ints for the hot path
+_SWITCHES = int(Checks.SWITCHES)
 
 
 class Supervisor:
@@ -163,9 +168,9 @@ class Supervisor:
         self.supply_v = supply_v
         m = self.machine
         m.button_held = bool(switches & SW_ESTOP_BUTTON)
-        checks = CHECKS_BY_STATE[m.state]
+        checks = _CHECK_MASKS[m.state]
         if m.output is Output.RAMP:
-            checks |= Checks.SWITCHES
+            checks |= _SWITCHES
         found = self.interlocks.check(
             t_s, checks, x_m, v_mps, omega_radps, drive, switches, faults, supply_v
         )
