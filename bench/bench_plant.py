@@ -50,8 +50,9 @@ def time_numpy_reference(params: PlantParams, substeps: int, drive: list[float])
         _x, v, th, w = z
         s, c = np.sin(th), np.cos(th)
         mass = np.array([[mt, -ml * c], [-ml * c, jp]])
-        q = np.array([f_rest - b * v - params.cart_coulomb_n * np.sign(v) - ml * s * w * w,
-                      mgl * s - bp * w])
+        q = np.array(
+            [f_rest - b * v - params.cart_coulomb_n * np.sign(v) - ml * s * w * w, mgl * s - bp * w]
+        )
         a, alpha = np.linalg.solve(mass, q)
         return np.array([v, a, w, alpha])
 
@@ -83,12 +84,16 @@ def main() -> None:
     for substeps in (1, 2, 4):
         wall = time_plant(params, substeps, drive)
         pure_by_substeps[substeps] = wall
-        print(f"{'pure-float RK4':<22}{substeps:>9}{steps / wall:>12.0f}{wall / steps * 1e6:>10.2f}"
-              f"{args.seconds / wall:>13.1f}")
+        print(
+            f"{'pure-float RK4':<22}{substeps:>9}{steps / wall:>12.0f}{wall / steps * 1e6:>10.2f}"
+            f"{args.seconds / wall:>13.1f}"
+        )
     numpy_steps = max(steps // 10, 1)
     wall = time_numpy_reference(params, 4, drive[:numpy_steps]) * steps / numpy_steps
-    print(f"{'numpy RK4 (reference)':<22}{4:>9}{steps / wall:>12.0f}{wall / steps * 1e6:>10.2f}"
-          f"{args.seconds / wall:>13.1f}")
+    print(
+        f"{'numpy RK4 (reference)':<22}{4:>9}{steps / wall:>12.0f}{wall / steps * 1e6:>10.2f}"
+        f"{args.seconds / wall:>13.1f}"
+    )
     print(f"pure-float / numpy speed ratio at 4 substeps: {wall / pure_by_substeps[4]:.1f}x")
 
 

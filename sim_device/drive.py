@@ -58,8 +58,13 @@ class DriveParams:
     def __post_init__(self) -> None:
         if self.kind not in DRIVE_KINDS:
             raise ValueError(f"drive.kind must be one of {DRIVE_KINDS} (got {self.kind!r})")
-        for name in ("limit", "torque_constant_nm_per_a", "resistance_ohm", "gear_ratio",
-                     "pulley_radius_m"):
+        for name in (
+            "limit",
+            "torque_constant_nm_per_a",
+            "resistance_ohm",
+            "gear_ratio",
+            "pulley_radius_m",
+        ):
             if not getattr(self, name) > 0.0:
                 raise ValueError(f"drive.{name} must be > 0 (got {getattr(self, name)!r})")
         for name in ("rotor_inertia_kgm2", "dead_band"):

@@ -107,8 +107,12 @@ class PlantParams:
         for name in ("cart_mass_kg", "pendulum_mass_kg", "com_distance_m", "gravity_mps2"):
             if not getattr(self, name) > 0.0:
                 raise ValueError(f"plant.{name} must be > 0 (got {getattr(self, name)!r})")
-        for name in ("inertia_com_kgm2", "cart_viscous_n_per_mps", "cart_coulomb_n",
-                     "pivot_viscous_nms_per_rad"):
+        for name in (
+            "inertia_com_kgm2",
+            "cart_viscous_n_per_mps",
+            "cart_coulomb_n",
+            "pivot_viscous_nms_per_rad",
+        ):
             if not getattr(self, name) >= 0.0:
                 raise ValueError(f"plant.{name} must be >= 0 (got {getattr(self, name)!r})")
 
@@ -120,7 +124,7 @@ class PlantParams:
     @property
     def pivot_inertia_kgm2(self) -> float:
         """``J = I + m l^2``: the pendulum's inertia about the pivot."""
-        return self.inertia_com_kgm2 + self.pendulum_mass_kg * self.com_distance_m ** 2
+        return self.inertia_com_kgm2 + self.pendulum_mass_kg * self.com_distance_m**2
 
 
 Accelerations = Callable[[float, float, float, float, float], tuple[float, float]]
@@ -236,6 +240,7 @@ def cart_counts(x_m: float, counts_per_m: float) -> int:
 
 
 def x_from_counts(counts: int, counts_per_m: float) -> float:
+    """``x = counts / counts_per_m``."""
     return counts / counts_per_m
 
 
@@ -324,7 +329,7 @@ class Plant:
     # -- disturbances ----------------------------------------------------------
 
     def apply_impulse(self, pendulum_ns: float = 0.0, cart_ns: float = 0.0) -> None:
-        """Apply horizontal impulses (N s, +x positive) at the pendulum's centre of mass and on the cart.
+        """Horizontal impulses (N s, +x positive) at the pendulum's centre of mass and on the cart.
 
         Solves the impulse-momentum equations of the constrained system (module
         docstring). A held cart takes the cart's share and stays still.

@@ -12,12 +12,24 @@ from sim_device.plant import DriveParams, PlantParams, TrackParams
 def test_demo_rig_config_maps_onto_plant_params_field_by_field():
     params = plant_params(load_config("configs/kestrel-1.toml"))
     assert params == PlantParams(
-        cart_mass_kg=0.75, pendulum_mass_kg=0.12, com_distance_m=0.25, inertia_com_kgm2=0.0025,
-        gravity_mps2=9.81, cart_viscous_n_per_mps=2.0, cart_coulomb_n=0.35,
+        cart_mass_kg=0.75,
+        pendulum_mass_kg=0.12,
+        com_distance_m=0.25,
+        inertia_com_kgm2=0.0025,
+        gravity_mps2=9.81,
+        cart_viscous_n_per_mps=2.0,
+        cart_coulomb_n=0.35,
         pivot_viscous_nms_per_rad=0.0004,
-        drive=DriveParams(kind="voltage", limit=12.0, torque_constant_nm_per_a=0.042,
-                          resistance_ohm=1.9, gear_ratio=2.0, pulley_radius_m=0.015,
-                          rotor_inertia_kgm2=0.0, dead_band=0.15),
+        drive=DriveParams(
+            kind="voltage",
+            limit=12.0,
+            torque_constant_nm_per_a=0.042,
+            resistance_ohm=1.9,
+            gear_ratio=2.0,
+            pulley_radius_m=0.015,
+            rotor_inertia_kgm2=0.0,
+            dead_band=0.15,
+        ),
         track=TrackParams(length_m=0.9, switch_inset_m=0.03, has_limit_switches=True),
     )
 
@@ -48,8 +60,11 @@ def test_force_rig_config_with_defaults_maps_kind_limit_and_switch_settings():
     params = plant_params(parse_config(MINIMAL_FORCE_RIG))
     assert params.drive.kind == "force" and params.drive.limit == 15.0
     assert params.track == TrackParams(length_m=1.2, switch_inset_m=0.05, has_limit_switches=False)
-    assert (params.cart_viscous_n_per_mps, params.cart_coulomb_n, params.pivot_viscous_nms_per_rad) == (
-        0.0, 0.0, 0.0)
+    assert (
+        params.cart_viscous_n_per_mps,
+        params.cart_coulomb_n,
+        params.pivot_viscous_nms_per_rad,
+    ) == (0.0, 0.0, 0.0)
 
 
 def test_a_switch_inset_past_the_track_middle_is_reported_by_field():

@@ -19,8 +19,14 @@ from sim_device.plant import (
     x_from_counts,
 )
 
-MOTOR = DriveParams(kind="voltage", limit=12.0, torque_constant_nm_per_a=0.042, resistance_ohm=1.9,
-                    gear_ratio=2.0, pulley_radius_m=0.015)
+MOTOR = DriveParams(
+    kind="voltage",
+    limit=12.0,
+    torque_constant_nm_per_a=0.042,
+    resistance_ohm=1.9,
+    gear_ratio=2.0,
+    pulley_radius_m=0.015,
+)
 
 
 def test_voltage_drive_gives_the_motor_stall_force_at_rest():
@@ -31,30 +37,52 @@ def test_voltage_drive_gives_the_motor_stall_force_at_rest():
 
 
 def test_voltage_drive_force_vanishes_at_the_no_load_speed_and_falls_linearly_with_speed():
-    # No-load speed of a PM DC motor: w0 = V / Ke, Ke = Kt in SI units (Hughes & Drury, 2013, ch. 3);
+    # No-load speed of a PM DC motor: w0 = V / Ke, Ke = Kt in SI units (Hughes & Drury 2013, ch. 3);
     # the cart moves at w0 r / G there. Torque falls linearly from stall to zero at w0.
     no_load_mps = 6.0 / 0.042 * 0.015 / 2.0
     assert cart_force(MOTOR, 6.0, no_load_mps) == pytest.approx(0.0, abs=1e-12)
     stall = cart_force(MOTOR, 6.0, 0.0)
     assert cart_force(MOTOR, 6.0, 0.25 * no_load_mps) == pytest.approx(0.75 * stall, rel=1e-12)
-    assert cart_force(MOTOR, 0.0, -no_load_mps) == pytest.approx(stall, rel=1e-12)  # back-EMF brakes
+    assert cart_force(MOTOR, 0.0, -no_load_mps) == pytest.approx(
+        stall, rel=1e-12
+    )  # back-EMF brakes
 
 
 def test_force_drive_force_is_the_command_in_newtons_without_back_emf():
-    drive = DriveParams(kind="force", limit=20.0, torque_constant_nm_per_a=0.042, resistance_ohm=1.9,
-                        gear_ratio=2.0, pulley_radius_m=0.015)
+    drive = DriveParams(
+        kind="force",
+        limit=20.0,
+        torque_constant_nm_per_a=0.042,
+        resistance_ohm=1.9,
+        gear_ratio=2.0,
+        pulley_radius_m=0.015,
+    )
     assert cart_force(drive, 7.5, 3.0) == 7.5
     assert cart_force(drive, -25.0, 0.0) == -20.0
 
 
 @pytest.mark.parametrize(
     "command, applied, effective",
-    [(0.0, 0.0, 0.0), (0.1, 0.1, 0.0), (-0.15, -0.15, 0.0), (0.25, 0.25, 0.1), (-3.0, -3.0, -2.85),
-     (15.0, 12.0, 11.85), (-99.0, -12.0, -11.85)],
+    [
+        (0.0, 0.0, 0.0),
+        (0.1, 0.1, 0.0),
+        (-0.15, -0.15, 0.0),
+        (0.25, 0.25, 0.1),
+        (-3.0, -3.0, -2.85),
+        (15.0, 12.0, 11.85),
+        (-99.0, -12.0, -11.85),
+    ],
 )
 def test_command_saturates_at_the_limit_then_loses_the_dead_band(command, applied, effective):
-    drive = DriveParams(kind="voltage", limit=12.0, torque_constant_nm_per_a=0.042, resistance_ohm=1.9,
-                        gear_ratio=2.0, pulley_radius_m=0.015, dead_band=0.15)
+    drive = DriveParams(
+        kind="voltage",
+        limit=12.0,
+        torque_constant_nm_per_a=0.042,
+        resistance_ohm=1.9,
+        gear_ratio=2.0,
+        pulley_radius_m=0.015,
+        dead_band=0.15,
+    )
     assert applied_command(drive, command) == applied
     assert effective_command(drive, command) == pytest.approx(effective, abs=1e-12)
 
@@ -81,13 +109,32 @@ def test_cart_counts_are_zero_at_the_centre_and_invert_to_within_half_a_count():
 
 def test_bad_parameters_are_rejected_naming_the_field():
     with pytest.raises(ValueError, match=r"drive\.kind must be one of"):
-        DriveParams(kind="hydraulic", limit=1.0, torque_constant_nm_per_a=1.0, resistance_ohm=1.0,  # type: ignore[arg-type]
-                    gear_ratio=1.0, pulley_radius_m=1.0)
+        DriveParams(
+            kind="hydraulic",
+            limit=1.0,
+            torque_constant_nm_per_a=1.0,
+            resistance_ohm=1.0,  # type: ignore[arg-type]
+            gear_ratio=1.0,
+            pulley_radius_m=1.0,
+        )
     with pytest.raises(ValueError, match=r"drive\.resistance_ohm must be > 0"):
-        DriveParams(kind="voltage", limit=1.0, torque_constant_nm_per_a=1.0, resistance_ohm=0.0,
-                    gear_ratio=1.0, pulley_radius_m=1.0)
+        DriveParams(
+            kind="voltage",
+            limit=1.0,
+            torque_constant_nm_per_a=1.0,
+            resistance_ohm=0.0,
+            gear_ratio=1.0,
+            pulley_radius_m=1.0,
+        )
     with pytest.raises(ValueError, match=r"track\.switch_inset_m must be in"):
         TrackParams(length_m=0.1, switch_inset_m=0.05)
     with pytest.raises(ValueError, match=r"plant\.cart_coulomb_n must be >= 0"):
-        PlantParams(cart_mass_kg=1.0, pendulum_mass_kg=0.1, com_distance_m=0.2, inertia_com_kgm2=0.0,
-                    cart_coulomb_n=-1.0, drive=MOTOR, track=TrackParams(1.0, 0.02))
+        PlantParams(
+            cart_mass_kg=1.0,
+            pendulum_mass_kg=0.1,
+            com_distance_m=0.2,
+            inertia_com_kgm2=0.0,
+            cart_coulomb_n=-1.0,
+            drive=MOTOR,
+            track=TrackParams(1.0, 0.02),
+        )

@@ -1,4 +1,4 @@
-"""Behaviour of the stepped plant: periods, energy, stiction, end stops, switches, impulses, determinism."""
+"""The stepped plant: periods, energy, stiction, end stops, switches, impulses, determinism."""
 
 from __future__ import annotations
 
@@ -12,14 +12,22 @@ from scipy.special import ellipk
 from sim_device.plant import DriveParams, Plant, PlantParams, TrackParams
 
 FORCE_DRIVE = DriveParams(
-    kind="force", limit=50.0, torque_constant_nm_per_a=1.0, resistance_ohm=1.0,
-    gear_ratio=1.0, pulley_radius_m=1.0,
+    kind="force",
+    limit=50.0,
+    torque_constant_nm_per_a=1.0,
+    resistance_ohm=1.0,
+    gear_ratio=1.0,
+    pulley_radius_m=1.0,
 )
 FRICTIONLESS = PlantParams(
-    cart_mass_kg=0.8, pendulum_mass_kg=0.15, com_distance_m=0.25, inertia_com_kgm2=0.003,
-    drive=FORCE_DRIVE, track=TrackParams(length_m=100.0, switch_inset_m=0.05),
+    cart_mass_kg=0.8,
+    pendulum_mass_kg=0.15,
+    com_distance_m=0.25,
+    inertia_com_kgm2=0.003,
+    drive=FORCE_DRIVE,
+    track=TrackParams(length_m=100.0, switch_inset_m=0.05),
 )
-DT_S = 0.001  # 1 kHz, the fastest sample rate a rig config allows is 5 kHz; 1 kHz is the reference
+DT_S = 0.001  # 1 kHz sample period, the rate the issue's checks are stated at
 
 
 def swing_period_s(params: PlantParams, release_from_hanging_rad: float, swings: int) -> float:
@@ -50,7 +58,11 @@ def test_small_angle_period_is_the_physical_pendulum_formula():
     # Physical pendulum, T = 2 pi sqrt((I + m l^2) / (m g l)): Halliday, Resnick & Walker,
     # "Fundamentals of Physics" (physical pendulum). A 1 degree release lengthens T by ~2e-5.
     p = FRICTIONLESS
-    expected = 2 * math.pi * math.sqrt(pivot_inertia(p) / (p.pendulum_mass_kg * p.gravity_mps2 * p.com_distance_m))
+    expected = (
+        2
+        * math.pi
+        * math.sqrt(pivot_inertia(p) / (p.pendulum_mass_kg * p.gravity_mps2 * p.com_distance_m))
+    )
     assert swing_period_s(p, math.radians(1.0), swings=5) == pytest.approx(expected, rel=1e-4)
 
 
@@ -60,8 +72,14 @@ def test_large_amplitude_period_matches_the_complete_elliptic_integral(release_d
     # E. M. Lifshitz, "Mechanics", 1976, sec. 11 problem 1); scipy.special.ellipk takes m = k^2.
     p = FRICTIONLESS
     k = math.sin(math.radians(release_deg) / 2)
-    expected = 4 * math.sqrt(pivot_inertia(p) / (p.pendulum_mass_kg * p.gravity_mps2 * p.com_distance_m)) * ellipk(k * k)
-    assert swing_period_s(p, math.radians(release_deg), swings=4) == pytest.approx(expected, rel=1e-3)
+    expected = (
+        4
+        * math.sqrt(pivot_inertia(p) / (p.pendulum_mass_kg * p.gravity_mps2 * p.com_distance_m))
+        * ellipk(k * k)
+    )
+    assert swing_period_s(p, math.radians(release_deg), swings=4) == pytest.approx(
+        expected, rel=1e-3
+    )
 
 
 def test_total_energy_drifts_less_than_1e_6_over_60_s_at_1_khz_with_friction_off():
@@ -76,10 +94,23 @@ def test_total_energy_drifts_less_than_1e_6_over_60_s_at_1_khz_with_friction_off
 
 
 def test_energy_never_rises_with_every_loss_switched_on():
-    drive = DriveParams(kind="voltage", limit=12.0, torque_constant_nm_per_a=0.04, resistance_ohm=2.0,
-                        gear_ratio=2.0, pulley_radius_m=0.015, rotor_inertia_kgm2=1e-6)
-    params = replace(FRICTIONLESS, drive=drive, cart_viscous_n_per_mps=1.0, cart_coulomb_n=0.3,
-                     pivot_viscous_nms_per_rad=0.001, track=TrackParams(0.6, 0.02))
+    drive = DriveParams(
+        kind="voltage",
+        limit=12.0,
+        torque_constant_nm_per_a=0.04,
+        resistance_ohm=2.0,
+        gear_ratio=2.0,
+        pulley_radius_m=0.015,
+        rotor_inertia_kgm2=1e-6,
+    )
+    params = replace(
+        FRICTIONLESS,
+        drive=drive,
+        cart_viscous_n_per_mps=1.0,
+        cart_coulomb_n=0.3,
+        pivot_viscous_nms_per_rad=0.001,
+        track=TrackParams(0.6, 0.02),
+    )
     plant = Plant(params, (0.0, 0.8, math.pi - 2.0, 4.0))
     energy = plant.total_energy()
     for _ in range(5_000):
@@ -90,7 +121,7 @@ def test_energy_never_rises_with_every_loss_switched_on():
     assert energy < 0.5 * Plant(params, (0.0, 0.8, math.pi - 2.0, 4.0)).total_energy()
 
 
-# --- Coulomb stiction -------------------------------------------------------------------------------
+# --- Coulomb stiction -----------------------------------------------------------------------------
 
 
 @pytest.mark.parametrize("force_n", [0.49, -0.49, 0.0])
@@ -122,7 +153,7 @@ def test_a_coasting_cart_comes_to_rest_and_then_stays_exactly_still():
     assert x_settled == pytest.approx(0.3**2 / (2 * 0.5 / 0.95), rel=0.15)
 
 
-# --- Track ----------------------------------------------------------------------------------------------
+# --- Track ----------------------------------------------------------------------------------------
 
 
 def test_end_stop_stops_the_cart_dead_at_the_track_end_and_reports_it():
@@ -143,14 +174,18 @@ def test_end_stop_stops_the_cart_dead_at_the_track_end_and_reports_it():
 
 def test_end_stop_keeps_the_pendulum_momentum_about_the_pivot():
     # The stop's impulse acts on the cart only, so J w - m l cos(th) v is unchanged across it.
-    p = replace(FRICTIONLESS, track=TrackParams(length_m=0.8, switch_inset_m=0.03), gravity_mps2=1e-9)
+    p = replace(
+        FRICTIONLESS, track=TrackParams(length_m=0.8, switch_inset_m=0.03), gravity_mps2=1e-9
+    )
     theta, v0, w0 = 2.5, 0.6, 0.4
     plant = Plant(p, (0.4 - 1e-9, v0, theta, w0), substeps=1)
     plant.step(0.0, 1e-7)
     _, v, th, w = plant.state
     ml = p.pendulum_mass_kg * p.com_distance_m
     assert v == 0.0 and plant.end_stop_touched
-    assert pivot_inertia(p) * w == pytest.approx(pivot_inertia(p) * w0 - ml * math.cos(theta) * v0, rel=1e-5)
+    assert pivot_inertia(p) * w == pytest.approx(
+        pivot_inertia(p) * w0 - ml * math.cos(theta) * v0, rel=1e-5
+    )
     assert th == pytest.approx(theta, abs=1e-6)
 
 
@@ -158,23 +193,31 @@ def test_limit_switches_trip_at_the_inset_from_each_end():
     track = TrackParams(length_m=0.9, switch_inset_m=0.03)
     plant = Plant(replace(FRICTIONLESS, track=track))
     # the switches trip at |x| >= 0.45 - 0.03 = 0.42
-    expectations = {0.0: (False, False), 0.4199: (False, False), 0.4201: (False, True),
-                    0.45: (False, True), -0.4199: (False, False), -0.4201: (True, False),
-                    -0.45: (True, False)}
+    expectations = {
+        0.0: (False, False),
+        0.4199: (False, False),
+        0.4201: (False, True),
+        0.45: (False, True),
+        -0.4199: (False, False),
+        -0.4201: (True, False),
+        -0.45: (True, False),
+    }
     for x, switches in expectations.items():
         plant.set_state((x, 0.0, math.pi, 0.0))
         assert plant.limit_switches == switches, x
-    without = Plant(replace(FRICTIONLESS, track=replace(track, has_limit_switches=False)), (0.45, 0, math.pi, 0))
+    without = Plant(
+        replace(FRICTIONLESS, track=replace(track, has_limit_switches=False)), (0.45, 0, math.pi, 0)
+    )
     assert without.limit_switches == (False, False)
 
 
-# --- Impulses ----------------------------------------------------------------------------------------------
+# --- Impulses -------------------------------------------------------------------------------------
 
 
 def momenta(p: PlantParams, state) -> tuple[float, float]:
-    """Total horizontal momentum, and the pendulum's angular momentum about the fixed point at the pivot.
+    """Total horizontal momentum; pendulum angular momentum about the fixed point at the pivot.
 
-    Computed from the bodies directly: cart M v; pendulum m v_com and I w + r x m v_com, r from pivot to COM.
+    From the bodies directly: cart M v, pendulum m v_com; I w + r x m v_com with r pivot -> COM.
     """
     _x, v, th, w = state
     m, l = p.pendulum_mass_kg, p.com_distance_m
@@ -196,7 +239,9 @@ def test_impulses_change_linear_and_pivot_angular_momentum_by_exactly_the_impuls
         (lin0, ang0), (lin1, ang1) = momenta(p, state), momenta(p, plant.state)
         r_y = p.com_distance_m * math.cos(state[2])
         assert lin1 - lin0 == pytest.approx(pendulum_ns + cart_ns, abs=1e-12)
-        assert ang1 - ang0 == pytest.approx(-r_y * pendulum_ns, abs=1e-12)  # r x (P, 0) about the pivot
+        assert ang1 - ang0 == pytest.approx(
+            -r_y * pendulum_ns, abs=1e-12
+        )  # r x (P, 0) about the pivot
         assert plant.state[::2] == state[::2]  # positions do not jump
 
 
@@ -221,12 +266,16 @@ def test_holding_the_cart_keeps_it_still_under_any_command():
     assert plant.state[1] > 0.0
 
 
-# --- Determinism ------------------------------------------------------------------------------------------
+# --- Determinism ----------------------------------------------------------------------------------
 
 
 def test_identical_inputs_give_bit_identical_trajectories():
-    params = replace(FRICTIONLESS, cart_coulomb_n=0.3, cart_viscous_n_per_mps=0.5,
-                     track=TrackParams(length_m=0.6, switch_inset_m=0.02))
+    params = replace(
+        FRICTIONLESS,
+        cart_coulomb_n=0.3,
+        cart_viscous_n_per_mps=0.5,
+        track=TrackParams(length_m=0.6, switch_inset_m=0.02),
+    )
     commands = np.random.default_rng(99).uniform(-8, 8, size=3_000).tolist()
     runs = []
     for _ in range(2):

@@ -1,4 +1,4 @@
-"""Map a validated rig config onto the plant model's parameters (the one parameter set of the rig)."""
+"""Map a validated rig config onto the plant model's parameters (the rig's one parameter set)."""
 
 from __future__ import annotations
 
