@@ -10,7 +10,9 @@ status fan-out are synchronous and only append to a per-client outgoing queue,
 which that client's own writer task drains. The queue is bounded
 (``api.client_queue_lines``): when it is full the oldest queued status line is
 dropped (counted per client and in :meth:`ApiServer.stats`); when it is full of
-replies the client is not reading at all and is disconnected.
+replies, that client's next request is not read until its writer makes
+progress (so pipelined requests all get answered), and a client that reads
+nothing for ``api.stalled_client_timeout_s`` is disconnected.
 
 Policies a client can rely on:
 
@@ -89,7 +91,7 @@ class ApiStats:
     status_lines_queued: int = 0
     status_lines_dropped: int = 0
     status_failures: int = 0
-    slow_clients_disconnected: int = 0
+    stalled_clients_disconnected: int = 0
 
 
 class _Client:
@@ -100,7 +102,8 @@ class _Client:
         self.queue_lines = queue_lines
         self.stats = stats
         self.lines: deque[tuple[bool, bytes]] = deque()  # (is_status_line, line)
-        self.wakeup = asyncio.Event()
+        self.wakeup = asyncio.Event()  # set when there is something for the writer to do
+        self.progress = asyncio.Event()  # set by the writer each time a line has gone out
         self.closing = False
         self.period_s = 0.0
         self.next_due = 0.0
@@ -132,15 +135,16 @@ class _Client:
         self.stats.status_lines_queued += 1
         self.wakeup.set()
 
-    def send_reply(self, line: bytes) -> bool:
-        """Queue a reply; False if the client is not reading its replies (the caller disconnects it)."""
+    def has_room_for_reply(self) -> bool:
+        return len(self.lines) < self.queue_lines or any(is_status for is_status, _ in self.lines)
+
+    def send_reply(self, line: bytes) -> None:
+        """Queue a reply (the read loop waits for room before reading the request it answers)."""
         if self.closing:
-            return True
-        if not self._make_room():
-            return False
+            return
+        self._make_room()
         self.lines.append((False, line))
         self.wakeup.set()
-        return True
 
     def finish(self) -> None:
         """Accept nothing more; the writer flushes what is queued and stops."""
@@ -265,6 +269,8 @@ class ApiServer:
 
     async def _read_loop(self, reader: asyncio.StreamReader, client: _Client) -> None:
         while not client.closing:
+            if not await self._wait_for_room(client):
+                return
             try:
                 line = await reader.readuntil(b"\n")
             except asyncio.IncompleteReadError as end:
@@ -281,6 +287,24 @@ class ApiServer:
             if line.strip():
                 self._handle_line(client, line)
 
+    async def _wait_for_room(self, client: _Client) -> bool:
+        """Hold back a client's next request while its queue is full of replies; False if it stalled."""
+        timeout_s = self._settings.stalled_client_timeout_s
+        try:
+            async with asyncio.timeout(timeout_s):
+                while not client.has_room_for_reply():
+                    client.progress.clear()
+                    await client.progress.wait()
+        except TimeoutError:
+            self._stats.stalled_clients_disconnected += 1
+            log.warning(
+                "control API: a client read none of its replies in %g s; cut off", timeout_s
+            )
+            self._unsubscribe(client)
+            client.abort()
+            return False
+        return True
+
     async def _write_loop(self, client: _Client) -> None:
         writer = client.writer
         try:
@@ -289,6 +313,7 @@ class ApiServer:
                     _, line = client.lines.popleft()
                     writer.write(line)
                     await writer.drain()
+                    client.progress.set()
                 if client.closing:
                     return
                 client.wakeup.clear()
@@ -319,7 +344,7 @@ class ApiServer:
         if request.cmd == "subscribe":
             self._handle_subscribe(client, request)
         elif request.cmd == "status":
-            self._reply(client, self._call_target(request, lambda: self._target.status()))
+            self._reply(client, self._call_target(request, self._target.status))
         else:
             self._reply(
                 client,
@@ -355,11 +380,7 @@ class ApiServer:
             line = encode_line(
                 error_reply(reply.get("id"), FAILED, f"reply cannot be encoded as JSON ({exc})")
             )
-        if not client.send_reply(line):
-            self._stats.slow_clients_disconnected += 1
-            log.warning("control API: client stopped reading its replies; disconnected")
-            self._unsubscribe(client)
-            client.abort()
+        client.send_reply(line)
 
     # --- status stream ------------------------------------------------------------------
 
