@@ -316,7 +316,7 @@ class Recorder:
         self._queue.append(item)
         self._wake.set()
 
-    def close(self, timeout_s: float = 10.0) -> None:
+    def close(self, timeout_s: float | None = None) -> None:
         if self._closed:
             return
         if self._open_run_id is not None:

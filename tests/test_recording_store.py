@@ -1,0 +1,333 @@
+"""Run store: schema versions, one writer per file, run records, drops, errors, crash recovery.
+
+Crash-safety and durability claims are those of SQLite's WAL mode
+(sqlite.org/wal.html, "Write-Ahead Logging", and sqlite.org/pragma.html#pragma_synchronous):
+committed transactions survive the death of the writing process; ``PRAGMA
+integrity_check`` returning the single row "ok" is SQLite's own verdict that a
+file is undamaged (sqlite.org/pragma.html#pragma_integrity_check).
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import signal
+import sqlite3
+import subprocess
+import sys
+import textwrap
+from pathlib import Path
+
+import pytest
+
+from daemon.recording import ABORTED, SAMPLE_COLUMN_NAMES, SCHEMA_VERSION, Recorder, RecordingError
+from daemon.recording import RunMetadata
+from daemon.recording.schema import APPLICATION_ID
+from daemon.recording.store import get_run, list_runs, open_for_reading, run_events, sample_chunks
+
+REPO = Path(__file__).resolve().parents[1]
+MODES = {0: "IDLE", 1: "HOMING", 2: "SWING_UP", 3: "BALANCE", 9: "FAULT"}
+
+
+def sample_row(i: int) -> tuple:
+    """A distinct, exactly representable sample for index i (invented demo data)."""
+    return (
+        i & 0xFFFF,
+        2000 * i,
+        1_000_000_000 + 2_000_000 * i,
+        17 * i - 5000,
+        -3 * i,
+        i & 0x0F,
+        (i >> 4) & 0x1F,
+        i * 1e-5,
+        0.5 - i * 3e-7,
+        math.pi - i * 1e-6,
+        -0.25 * (i % 7),
+        12.0 - i * 2.4e-5,
+        11.5 - i * 2.3e-5,
+        (0, 1, 2, 3)[(i // 1000) % 4],
+        20.0 + (i % 100) * 0.125,
+    )
+
+
+def metadata(rig_id: str = "kestrel-1", notes: str = "") -> RunMetadata:
+    return RunMetadata(
+        rig_id=rig_id,
+        config_text='[rig]\nid = "kestrel-1"\n',
+        software_version="0.1.0",
+        protocol_version="1",
+        firmware_version="1.4.2",
+        drive_kind="voltage",
+        mode_names=MODES,
+        operator_notes=notes,
+    )
+
+
+def stored_rows(db: Path, run_id: int) -> list[tuple]:
+    conn = open_for_reading(db)
+    try:
+        run = get_run(conn, run_id, db)
+        return [row for chunk in sample_chunks(conn, run) for row in chunk]
+    finally:
+        conn.close()
+
+
+def integrity(db: Path) -> str:
+    conn = sqlite3.connect(db)
+    try:
+        return conn.execute("PRAGMA integrity_check").fetchone()[0]
+    finally:
+        conn.close()
+
+
+def test_new_store_is_created_in_wal_mode_at_the_current_schema_version(tmp_path):
+    db = tmp_path / "runs.db"
+    Recorder(db).close()
+    conn = sqlite3.connect(db)
+    assert conn.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
+    assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION
+    assert conn.execute("PRAGMA application_id").fetchone()[0] == APPLICATION_ID
+    columns = [row[1] for row in conn.execute("PRAGMA table_info(samples)")]
+    assert columns == ["sample_id", "run_id", *SAMPLE_COLUMN_NAMES]
+
+
+def test_store_from_a_newer_poise_is_refused_with_one_line(tmp_path):
+    db = tmp_path / "runs.db"
+    Recorder(db).close()
+    conn = sqlite3.connect(db)
+    conn.execute(f"PRAGMA user_version = {SCHEMA_VERSION + 5}")
+    conn.close()
+    for opener in (Recorder, open_for_reading):
+        with pytest.raises(RecordingError) as caught:
+            opener(db)
+        message = str(caught.value)
+        assert "\n" not in message and str(db) in message
+        assert f"schema version {SCHEMA_VERSION + 5} is newer" in message
+
+
+def test_store_marked_as_poise_but_with_an_unknown_old_version_is_refused(tmp_path):
+    db = tmp_path / "runs.db"
+    conn = sqlite3.connect(db)
+    conn.execute(f"PRAGMA application_id = {APPLICATION_ID}")
+    conn.execute("CREATE TABLE samples (x)")
+    conn.commit()
+    conn.close()
+    with pytest.raises(RecordingError, match="schema version is 0; no migration exists"):
+        Recorder(db)
+
+
+def test_someone_elses_sqlite_file_is_left_alone(tmp_path):
+    db = tmp_path / "other.db"
+    conn = sqlite3.connect(db)
+    conn.execute("CREATE TABLE photos (name TEXT)")
+    conn.commit()
+    conn.close()
+    with pytest.raises(RecordingError, match=r"not a Poise run store .*tables: photos"):
+        Recorder(db)
+    conn = sqlite3.connect(db)
+    assert conn.execute("PRAGMA user_version").fetchone()[0] == 0
+    assert [r[0] for r in conn.execute("SELECT name FROM sqlite_schema")] == ["photos"]
+
+
+def test_unwritable_path_gives_one_line_naming_the_file(tmp_path):
+    not_a_dir = tmp_path / "plain-file"
+    not_a_dir.write_text("")
+    db = not_a_dir / "runs.db"
+    with pytest.raises(RecordingError) as caught:
+        Recorder(db)
+    assert str(db) in str(caught.value) and "\n" not in str(caught.value)
+
+
+def test_only_one_recorder_per_store(tmp_path):
+    db = tmp_path / "runs.db"
+    with Recorder(db):
+        with pytest.raises(RecordingError, match=f"already being recorded into by process {os.getpid()}"):
+            Recorder(db)
+    Recorder(db).close()  # the lock went with the first recorder
+
+
+def test_run_record_holds_metadata_counts_and_mode_reached(tmp_path):
+    db = tmp_path / "runs.db"
+    with Recorder(db) as recorder:
+        run_id = recorder.start_run(metadata(notes="new belt"))
+        for i in range(2500):  # modes 0, 1, 2 (sample_row changes mode every 1000)
+            recorder.put_sample(sample_row(i))
+        recorder.put_event("mode", "supervisor", {"from": "IDLE", "to": "HOMING"})
+        recorder.end_run("completed", {"max_abs_x_m": 0.31})
+    conn = open_for_reading(db)
+    run = get_run(conn, run_id, db)
+    assert (run.rig_id, run.outcome, run.operator_notes) == ("kestrel-1", "completed", "new belt")
+    assert (run.software_version, run.protocol_version, run.firmware_version) == ("0.1.0", "1", "1.4.2")
+    assert run.config_text == '[rig]\nid = "kestrel-1"\n'
+    assert run.summary == {"max_abs_x_m": 0.31}
+    assert (run.samples_written, run.samples_dropped, run.events_written) == (2500, 0, 1)
+    assert run.modes_seen == [0, 1, 2] and run.mode_reached == "SWING_UP"
+    assert run.mode_names == MODES
+    assert run.ended_unix_ns >= run.started_unix_ns
+    assert stored_rows(db, run_id) == [sample_row(i) for i in range(2500)]
+
+
+def test_samples_and_events_land_in_the_run_open_when_they_were_put(tmp_path):
+    db = tmp_path / "runs.db"
+    with Recorder(db) as recorder:
+        recorder.put_sample(sample_row(0))  # no run open: counted, not stored
+        recorder.put_event("link", "link", {"state": "up"}, t_host_ns=5)
+        first = recorder.start_run(metadata())
+        for i in range(1, 101):
+            recorder.put_sample(sample_row(i))
+        recorder.put_event("interlock", "interlocks", {"trip": "x_limit", "x_m": 0.41}, t_host_ns=7)
+        recorder.end_run("fault")
+        second = recorder.start_run(metadata())
+        for i in range(101, 151):
+            recorder.put_sample(sample_row(i))
+        recorder.end_run("completed")
+    stats = recorder.stats()
+    assert (stats.written, stats.unassigned, stats.events_written) == (150, 1, 2)
+    assert stored_rows(db, first) == [sample_row(i) for i in range(1, 101)]
+    assert stored_rows(db, second) == [sample_row(i) for i in range(101, 151)]
+    conn = open_for_reading(db)
+    assert run_events(conn, first) == [(7, "interlock", "interlocks", '{"trip": "x_limit", "x_m": 0.41}')]
+    assert run_events(conn, second) == []
+    assert conn.execute("SELECT kind FROM events WHERE run_id IS NULL").fetchall() == [("link",)]
+
+
+def test_full_queue_drops_are_counted_returned_and_stored_in_the_run(tmp_path):
+    db = tmp_path / "runs.db"
+    recorder = Recorder(db, queue_capacity=1000, batch_rows=500)
+    run_id = recorder.start_run(metadata())
+    blocker = sqlite3.connect(db, isolation_level=None)
+    blocker.execute("BEGIN IMMEDIATE")  # the writer cannot commit until we let go
+    accepted = [recorder.put_sample(sample_row(i)) for i in range(3000)]
+    blocker.execute("COMMIT")
+    recorder.end_run("completed")
+    recorder.close()
+    refused = accepted.count(False)
+    assert refused >= 3000 - 1000 - 500  # at most one batch left the queue while blocked
+    stats = recorder.stats()
+    assert (stats.dropped, stats.written) == (refused, 3000 - refused)
+    run = get_run(open_for_reading(db), run_id, db)
+    assert (run.samples_dropped, run.samples_written) == (refused, 3000 - refused)
+    kept = [sample_row(i) for i, ok in enumerate(accepted) if ok]
+    assert stored_rows(db, run_id) == kept
+
+
+def test_disk_full_stops_recording_with_an_error_and_leaves_a_sound_file(tmp_path):
+    db = tmp_path / "runs.db"
+    errors: list[str] = []
+    # max_page_count makes SQLite report SQLITE_FULL exactly as for a full disk
+    # (sqlite.org/pragma.html#pragma_max_page_count).
+    recorder = Recorder(db, max_db_bytes=300_000, batch_rows=1000, on_error=errors.append)
+    run_id = recorder.start_run(metadata())
+    for i in range(20_000):  # about 2 MB of samples
+        recorder.put_sample(sample_row(i))
+    recorder.end_run("completed")
+    recorder.close()
+    stats = recorder.stats()
+    assert stats.error is not None and "database or disk is full" in stats.error
+    assert str(db) in stats.error and "\n" not in stats.error
+    assert errors == [stats.error]
+    assert stats.written > 0 and stats.written + stats.lost == 20_000
+    assert integrity(db) == "ok"
+    # Every committed batch is whole: the run's counters match the rows present.
+    rows = stored_rows(db, run_id)
+    assert rows == [sample_row(i) for i in range(stats.written)]
+    assert get_run(open_for_reading(db), run_id, db).samples_written == stats.written
+    # The end of the run was never written, so the next start marks it aborted.
+    with Recorder(db) as reopened:
+        assert reopened.recovered_runs == [run_id]
+    assert get_run(open_for_reading(db), run_id, db).outcome == ABORTED
+
+
+def test_closing_with_a_run_open_ends_it_as_aborted(tmp_path):
+    db = tmp_path / "runs.db"
+    with Recorder(db) as recorder:
+        run_id = recorder.start_run(metadata())
+        recorder.put_sample(sample_row(0))
+    conn = open_for_reading(db)
+    assert get_run(conn, run_id, db).outcome == ABORTED
+    assert [event[1] for event in run_events(conn, run_id)] == ["run.not_ended"]
+
+
+def test_a_million_samples_at_full_speed_are_all_stored_in_order(tmp_path):
+    db = tmp_path / "runs.db"
+    count = 1_000_000
+    recorder = Recorder(db, queue_capacity=count + 10)  # room for the whole burst
+    run_id = recorder.start_run(metadata())
+    put = recorder.put_sample
+    refused = sum(1 for i in range(count) if not put(sample_row(i)))
+    recorder.end_run("completed")
+    recorder.close()
+    assert refused == 0
+    stats = recorder.stats()
+    assert (stats.written, stats.dropped, stats.lost, stats.error) == (count, 0, 0, None)
+    conn = open_for_reading(db)
+    run = get_run(conn, run_id, db)
+    assert (run.samples_written, run.samples_dropped) == (count, 0)
+    checked = 0
+    for chunk in sample_chunks(conn, run, chunk_rows=100_000):
+        assert chunk == [sample_row(i) for i in range(checked, checked + len(chunk))]
+        checked += len(chunk)
+    assert checked == count
+
+
+WRITER_SCRIPT = textwrap.dedent(
+    """
+    import sys, time
+    sys.path.insert(0, sys.argv[2])
+    from test_recording_store import metadata, sample_row
+    from daemon.recording import Recorder
+
+    recorder = Recorder(sys.argv[1], flush_interval_s=0.01, host_clock_ns=lambda: sample_row(0)[2])
+    recorder.start_run(metadata())
+    reported = 0
+    i = 0
+    while True:
+        recorder.put_sample(sample_row(i))
+        i += 1
+        if i % 200 == 0:
+            time.sleep(0.001)  # a brisk but finite producer, about 150 kHz
+            written = recorder.stats().written
+            if written != reported:
+                print(written, flush=True)
+                reported = written
+    """
+)
+
+
+def test_kill_9_mid_stream_keeps_every_committed_sample_and_the_run_is_marked_aborted(tmp_path):
+    db = tmp_path / "runs.db"
+    child = subprocess.Popen(
+        [sys.executable, "-c", WRITER_SCRIPT, str(db), str(Path(__file__).parent)],
+        stdout=subprocess.PIPE,
+        text=True,
+        cwd=REPO,
+    )
+    try:
+        committed = 0
+        while committed < 30_000:
+            line = child.stdout.readline()
+            assert line, f"writer process ended early with status {child.wait()}"
+            committed = int(line)
+        child.send_signal(signal.SIGKILL)  # no clean-up of any kind runs
+    finally:
+        child.kill()
+        child.wait()
+    assert child.returncode == -signal.SIGKILL
+
+    assert integrity(db) == "ok"
+    rows = stored_rows(db, 1)
+    assert len(rows) >= committed
+    assert rows == [sample_row(i) for i in range(len(rows))]
+    conn = open_for_reading(db)
+    (open_run,) = list_runs(conn)
+    assert open_run.outcome is None and open_run.samples_written == len(rows)
+    conn.close()
+
+    with Recorder(db) as recorder:
+        assert recorder.recovered_runs == [1]
+    conn = open_for_reading(db)
+    run = get_run(conn, 1, db)
+    assert run.outcome == ABORTED
+    last_sample_offset_ns = rows[-1][2] - sample_row(0)[2]
+    assert run.ended_unix_ns - run.started_unix_ns == last_sample_offset_ns
+    assert [event[1] for event in run_events(conn, 1)] == ["run.aborted"]
