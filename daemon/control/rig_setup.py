@@ -37,12 +37,14 @@ class ControlSet:
     dt_s: float
 
 
-def build_control_set(config: PoiseConfig, law: str | None = None) -> ControlSet:
+def build_control_set(
+    config: PoiseConfig, law: str | None = None, use_config_gains: bool = True
+) -> ControlSet:
     """Everything the control cycle runs, from ``config``; ``law`` overrides ``swing_up.law``."""
     params = plant_params(config)
     rate = config.sampling.rate_hz
     dt = 1.0 / rate
-    design = design_balance(params, config.balance, rate)
+    design = design_balance(params, config.balance, rate, use_config_gains)
     scaling = EncoderScaling(config.encoders.cart_counts_per_m, config.encoders.pendulum_counts_per_rev)
     est = config.estimator
     kalman = None

@@ -1,0 +1,139 @@
+"""Homing: find the track centre, as a small state machine fed one sample at a time.
+
+With limit switches (``track.has_limit_switches``):
+
+1. ``SEEK_NEGATIVE``: move at ``-speed_mps`` until the negative switch closes;
+   the cart position there is the reference (the encoder is "zeroed" there:
+   the centre is ``length_m/2 - switch_inset_m`` further on).
+2. ``SEEK_POSITIVE``: move at ``+speed_mps`` until the positive switch closes;
+   the measured switch-to-switch travel must equal ``length_m - 2 switch_inset_m``
+   within ``homing.length_tolerance_m``, otherwise homing FAILS with a message
+   giving both numbers (wrong track length or inset in the config, a slipping
+   belt, or a wrong ``cart_counts_per_m``).
+3. ``TO_CENTRE``: position loop to the centre; ``DONE`` once within
+   ``centre_tolerance_m`` and nearly still.
+
+A switch not found within the configured travel plus 10 % (and 5 cm) also
+fails, as do both switches closed at once (wiring fault).
+
+Without switches the present position is declared the centre at once
+(``DONE`` on the first sample); the travel limits then follow from the
+configured track length.
+
+Motion is a velocity loop (``a = (v_target - v) / 0.05 s``, at most 1 m/s^2)
+through the inverse plant model; the drive command is clamped to the limit.
+``update`` takes raw cart positions (encoder counts / counts_per_m, no offset)
+and returns the drive command; :attr:`centre_raw_m` is the result.
+"""
+
+from __future__ import annotations
+
+import enum
+import math
+
+from daemon.config.control import HomingSettings
+from daemon.control.drive_model import AccelerationDrive, clamp
+from protocol.messages import SW_LIMIT_NEG, SW_LIMIT_POS
+from sim_device.plant import PlantParams
+
+__all__ = ["Homing", "HomingPhase"]
+
+_VELOCITY_TIME_CONSTANT_S = 0.05
+_MAX_ACCEL_MPS2 = 1.0
+_POSITION_GAIN_PER_S = 2.0
+
+
+class HomingPhase(enum.Enum):
+    SEEK_NEGATIVE = "seek_negative"
+    SEEK_POSITIVE = "seek_positive"
+    TO_CENTRE = "to_centre"
+    DONE = "done"
+    FAILED = "failed"
+
+
+class Homing:
+    def __init__(self, params: PlantParams, settings: HomingSettings):
+        self._drive = AccelerationDrive(params)
+        self._speed = settings.speed_mps
+        self._tolerance = settings.length_tolerance_m
+        self._centre_tolerance = settings.centre_tolerance_m
+        track = params.track
+        self._has_switches = track.has_limit_switches
+        self.expected_travel_m = track.length_m - 2.0 * track.switch_inset_m
+        self._search_m = 1.1 * track.length_m + 0.05
+        self.phase = HomingPhase.SEEK_NEGATIVE
+        self.centre_raw_m: float | None = None
+        self.measured_travel_m: float | None = None
+        self.message = ""
+        self._start_raw_m = 0.0
+        self._negative_raw_m = 0.0
+
+    @property
+    def finished(self) -> bool:
+        return self.phase in (HomingPhase.DONE, HomingPhase.FAILED)
+
+    def start(self, raw_x_m: float) -> None:
+        self.centre_raw_m = None
+        self.measured_travel_m = None
+        self.message = ""
+        self._start_raw_m = raw_x_m
+        if self._has_switches:
+            self.phase = HomingPhase.SEEK_NEGATIVE
+        else:
+            self.centre_raw_m = raw_x_m
+            self.phase = HomingPhase.DONE
+            self.message = "no limit switches: present position declared the track centre"
+
+    def _fail(self, message: str) -> float:
+        self.phase = HomingPhase.FAILED
+        self.message = f"homing failed: {message}"
+        return 0.0
+
+    def _velocity(self, target: float, v: float, theta: float, omega: float) -> float:
+        a = clamp((target - v) / _VELOCITY_TIME_CONSTANT_S, _MAX_ACCEL_MPS2)
+        return self._drive.command_for(a, v, math.sin(theta), math.cos(theta), omega)
+
+    def update(self, raw_x_m: float, v: float, theta: float, omega: float, switches: int) -> float:
+        """One sample: returns the drive command (0 once finished)."""
+        negative = bool(switches & SW_LIMIT_NEG)
+        positive = bool(switches & SW_LIMIT_POS)
+        if self.finished:
+            return 0.0
+        if negative and positive:
+            return self._fail("both limit switches closed at once (wiring fault?)")
+        if self.phase is HomingPhase.SEEK_NEGATIVE:
+            if negative:
+                self._negative_raw_m = raw_x_m
+                self.phase = HomingPhase.SEEK_POSITIVE
+                return self._velocity(0.0, v, theta, omega)
+            if self._start_raw_m - raw_x_m > self._search_m:
+                return self._fail(
+                    f"negative limit switch not found after {self._start_raw_m - raw_x_m:.3f} m of travel"
+                )
+            return self._velocity(-self._speed, v, theta, omega)
+        if self.phase is HomingPhase.SEEK_POSITIVE:
+            travel = raw_x_m - self._negative_raw_m
+            if positive:
+                self.measured_travel_m = travel
+                if abs(travel - self.expected_travel_m) > self._tolerance:
+                    return self._fail(
+                        f"measured switch-to-switch travel {travel:.3f} m, config says "
+                        f"{self.expected_travel_m:.3f} m (track.length_m - 2 track.switch_inset_m); "
+                        f"differs by more than homing.length_tolerance_m = {self._tolerance} m"
+                    )
+                self.centre_raw_m = self._negative_raw_m + 0.5 * self.expected_travel_m
+                self.phase = HomingPhase.TO_CENTRE
+                return self._velocity(0.0, v, theta, omega)
+            if travel > self.expected_travel_m + self._tolerance + 0.05:
+                return self._fail(
+                    f"positive limit switch not found {travel:.3f} m past the negative one "
+                    f"(expected {self.expected_travel_m:.3f} m)"
+                )
+            return self._velocity(self._speed, v, theta, omega)
+        offset = raw_x_m - self.centre_raw_m
+        if abs(offset) < self._centre_tolerance and abs(v) < 0.2 * self._speed:
+            self.phase = HomingPhase.DONE
+            self.message = f"homed: switch-to-switch travel {self.measured_travel_m:.4f} m"
+            return 0.0
+        target = clamp(-_POSITION_GAIN_PER_S * offset, 2.0 * self._speed)
+        return self._velocity(target, v, theta, omega)
