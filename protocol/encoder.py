@@ -27,7 +27,7 @@ def encode_drive(seq: int, drive: float, answers_seq: int) -> bytes:
     """Fast path for the per-sample Drive frame; same bytes as ``encode(Drive(...))``."""
     try:
         body = _DRIVE_BODY.pack(PROTOCOL_VERSION, 0, _DRIVE_TYPE_ID, seq, drive, answers_seq)
-    except struct.error:
+    except (struct.error, OverflowError):
         return encode(Drive(seq, drive, answers_seq))  # raises the descriptive ValueError
     return _cobs_encode(body + _crc_pack(crc_hqx(body, CRC_INIT))) + DELIMITER
 
@@ -45,7 +45,7 @@ def encode(message: Message) -> bytes:
         values[index] = _text_to_wire(layout, index, values[index])
     try:
         body = layout.body.pack(PROTOCOL_VERSION, 0, layout.type_id, *values)
-    except struct.error:
+    except (struct.error, OverflowError):
         raise ValueError(_describe_bad_field(layout, values)) from None
     return seal_frame(body)
 
@@ -79,7 +79,7 @@ def _describe_bad_field(layout: Layout, values: list[object]) -> str:
     for name, code, value in zip(names, codes, values):
         try:
             struct.pack("<" + code, value)
-        except struct.error as error:
+        except (struct.error, OverflowError) as error:
             return (
                 f"cannot encode {layout.cls.__name__}: field {name}={value!r} does not fit "
                 f"{_WIRE_TYPE_NAMES[code]} ({error})"
