@@ -22,7 +22,7 @@ from collections.abc import AsyncIterator
 from pathlib import Path
 from typing import Self
 
-from daemon.api.wire import REFUSED, encode_line
+from daemon.api.wire import REFUSED
 from daemon.errors import CommandRefused
 
 # Status lines kept for a subscriber that reads slower than they arrive; older ones are dropped.
@@ -143,7 +143,8 @@ class ApiClient:
         if self._closed_reason is not None:
             raise ConnectionLost(self._closed_reason)
         try:
-            self._writer.write(encode_line(message))
+            # Plain json.dumps: a NaN argument goes out as NaN, so the daemon's error names it.
+            self._writer.write(json.dumps(message).encode() + b"\n")
             await self._writer.drain()
         except ConnectionError:
             raise ConnectionLost(

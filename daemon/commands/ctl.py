@@ -158,8 +158,8 @@ def _send(verb: str, socket_path: str, command: str, api_args: dict, timeout_s: 
         return asyncio.run(request())
     except CommandRefused as exc:
         raise OperatorError(f"{verb} refused: {exc.reason}") from None
-    except ApiError as exc:
-        raise OperatorError(f"{verb}: {exc}") from None
+    except ApiError as exc:  # its message already names the command or the socket
+        raise OperatorError(str(exc)) from None
     except TimeoutError:
         raise OperatorError(
             f"{verb}: no answer from the daemon on {socket_path} within {timeout_s:g} s"

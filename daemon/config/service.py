@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from pydantic import Field, field_validator, model_validator
+from pydantic import Field, ValidationInfo, field_validator
 
 from daemon.config.base import Section
 
@@ -62,11 +62,10 @@ class ApiSettings(Section):
             )
         return value
 
-    @model_validator(mode="after")
-    def _default_rate_within_cap(self) -> ApiSettings:
-        if self.status_rate_hz > self.max_status_rate_hz:
-            raise ValueError(
-                f"status_rate_hz ({self.status_rate_hz}) must not exceed max_status_rate_hz "
-                f"({self.max_status_rate_hz})"
-            )
-        return self
+    @field_validator("max_status_rate_hz")
+    @classmethod
+    def _cap_covers_default_rate(cls, value: float, info: ValidationInfo) -> float:
+        default_rate = info.data.get("status_rate_hz")
+        if default_rate is not None and value < default_rate:
+            raise ValueError(f"must be at least status_rate_hz ({default_rate:g})")
+        return value
