@@ -15,15 +15,17 @@ theta is wrapped to (-pi, pi]. Velocities come from one of two estimators
     each time the pendulum enters the region (so the estimate does not jump).
 
 Noise/lag trade-off, measured on the plant model balancing with the LQR
-(``tests/test_control_estimation.py::test_noise_and_lag_figures``; Kestrel-1,
-500 Hz, 4096-count pendulum encoder, 173852 counts/m cart encoder, encoder
-noise 0.5 counts rms, a 1.5 Hz cart set-point square wave of ±5 cm)::
+(``tests/test_control_estimation.py::test_noise_and_lag_figures``, run with
+``-s`` to print it; Kestrel-1, 500 Hz, 4096-count pendulum encoder, 173852
+counts/m cart encoder, encoder noise 0.5 counts rms on top of quantisation, a
+1.5 Hz square wave of ±5 cm on the cart set-point; rms error against the
+plant's true velocity, which includes the error due to lag)::
 
-    estimator                     cart v rms error   lag      pendulum w rms error   lag
-    raw difference (no filter)      3.2 mm/s         1.0 ms      0.95 rad/s           1.0 ms
-    filtered difference, 40 Hz      2.2 mm/s         4.9 ms      0.24 rad/s           4.9 ms
-    filtered difference, 15 Hz      6.6 mm/s        11.6 ms      0.12 rad/s          11.6 ms
-    Kalman (defaults)               1.0 mm/s         0.0 ms      0.04 rad/s           0.0 ms
+    estimator                    cart v rms   lag      pendulum w rms   lag
+    raw difference (no filter)    6.4 mm/s    0 ms       0.63 rad/s      0 ms
+    filtered difference, 40 Hz   22.4 mm/s    4 ms       0.20 rad/s      4 ms
+    filtered difference, 15 Hz   53.0 mm/s   10 ms       0.16 rad/s     10 ms
+    Kalman (defaults)             2.1 mm/s    0 ms       0.04 rad/s      0 ms
 
 (Lag: the shift that best aligns estimate and truth, in whole samples.) The
 filtered difference buys noise reduction with lag ~``1/(2 pi fc)``; the Kalman
