@@ -110,7 +110,8 @@ async def test_non_finite_status_values_go_out_as_null_so_every_line_is_strict_j
     async with ApiServer(rig, settings(socket_path)):
         client = await LineClient.open(socket_path)
         client.send({"id": 1, "cmd": "status"})
-        reply = await client.read()  # LineClient.read parses strictly: NaN would raise
+        # JSON has no NaN or Infinity (IETF RFC 8259, section 6), so LineClient.read rejects them.
+        reply = await client.read()
         assert reply["result"] == {"state": "IDLE", "motor_current_a": None, "drive": None}
         await client.close()
 
