@@ -1,6 +1,7 @@
 """Swing-up laws: energy control (Åström-Furuta) and set-point pumping, on the plant model."""
 
 import dataclasses
+import itertools
 import math
 
 import pytest
@@ -91,13 +92,13 @@ def test_drive_model_gives_the_commanded_cart_acceleration(path, kind):
     drive = AccelerationDrive(params)
     for state in [(0.0, 0.3, 2.0, -3.0), (0.1, -0.2, -1.0, 4.0), (0.0, 0.5, 0.3, 1.0)]:
         plant = Plant(params, state, substeps=1)
-        x, v, th, w = state
+        _x, v, th, w = state
         wanted = 2.5
         plant.step(drive.command_for(wanted, v, math.sin(th), math.cos(th), w), 1e-6)
         assert (plant.state[1] - v) / 1e-6 == pytest.approx(wanted, rel=1e-3)
 
 
-def pump_run(path: str, seconds: float):
+def pump_run(path: str):
     config = load_config(path)
     cs = build_control_set(config, "pump")
     sensors = SensorParams(config.encoders.cart_counts_per_m, config.encoders.pendulum_counts_per_rev, 0.5, 0.5)
@@ -107,7 +108,7 @@ def pump_run(path: str, seconds: float):
 
 @pytest.mark.parametrize("path", RIGS)
 def test_pumping_grows_the_swing_amplitude_every_half_swing(path):
-    config, cs, loop = pump_run(path, 20.0)
+    config, cs, loop = pump_run(path)
     pump = cs.swing_up
     mgl = cs.params.pendulum_mass_kg * cs.params.com_distance_m * G
     amplitudes, peak, last_p = [], 0.0, 0.0
@@ -122,14 +123,14 @@ def test_pumping_grows_the_swing_amplitude_every_half_swing(path):
         if pendulum_energy(cs.params, loop.plant.state) > 2 * mgl * 0.97:
             break
     assert len(amplitudes) >= 4
-    assert all(b > a for a, b in zip(amplitudes, amplitudes[1:], strict=False)), amplitudes
+    assert all(b > a for a, b in itertools.pairwise(amplitudes)), amplitudes
     assert pump.switches >= len(amplitudes)
     assert loop.max_abs_x_m < cs.soft_limit_m * config.swing_up.track_use_fraction
 
 
 @pytest.mark.parametrize("path", RIGS)
 def test_pumping_measures_the_pendulum_period_online(path):
-    config, cs, loop = pump_run(path, 6.0)
+    _config, cs, loop = pump_run(path)
     pump = cs.swing_up
     params = cs.params
     w0 = math.sqrt(params.pendulum_mass_kg * params.com_distance_m * G / params.pivot_inertia_kgm2)
