@@ -57,6 +57,11 @@ class FrameDecoder:
         """The most recent rejection as one line naming its stream byte offset, or None."""
         return self.counters.last_error
 
+    @property
+    def pending_bytes(self) -> int:
+        """Bytes held of a frame not yet terminated; never more than MAX_ENCODED_FRAME_BYTES."""
+        return len(self._pending)
+
     def feed(self, data: bytes) -> list[Message]:
         """Consume ``data`` (any bytes-like object) and return the messages completed by it.
 

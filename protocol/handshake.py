@@ -9,7 +9,8 @@ class HandshakeError(ValueError):
 
 def hello_mismatch(hello: DeviceHello) -> str | None:
     """One line naming both versions and both fingerprints if they differ, else None."""
-    if hello.protocol_version == PROTOCOL_VERSION and hello.schema_fingerprint == SCHEMA_FINGERPRINT:
+    same_version = hello.protocol_version == PROTOCOL_VERSION
+    if same_version and hello.schema_fingerprint == SCHEMA_FINGERPRINT:
         return None
     return (
         f"device {hello.device_id!r} speaks protocol version {hello.protocol_version} with "

@@ -34,7 +34,8 @@ class RetryTracker:
     def __init__(self, timeout_s: float, max_attempts: int) -> None:
         if timeout_s <= 0 or max_attempts < 1:
             raise ValueError(
-                f"retry timeout_s must be > 0 and max_attempts >= 1, got {timeout_s}, {max_attempts}"
+                "retry timeout_s must be > 0 and max_attempts >= 1, "
+                f"got {timeout_s} and {max_attempts}"
             )
         self.timeout_s = timeout_s
         self.max_attempts = max_attempts

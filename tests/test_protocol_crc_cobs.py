@@ -60,17 +60,22 @@ COBS_EXAMPLES = [
 ]
 
 
-@pytest.mark.parametrize(("name", "data", "encoded_hex"), COBS_EXAMPLES, ids=[e[0] for e in COBS_EXAMPLES])
+COBS_IDS = [example[0] for example in COBS_EXAMPLES]
+
+
+@pytest.mark.parametrize(("name", "data", "encoded_hex"), COBS_EXAMPLES, ids=COBS_IDS)
 def test_cobs_encodes_the_published_examples(name, data, encoded_hex):
     assert cobs_encode(data) == bytes.fromhex(encoded_hex)
 
 
-@pytest.mark.parametrize(("name", "data", "encoded_hex"), COBS_EXAMPLES, ids=[e[0] for e in COBS_EXAMPLES])
+@pytest.mark.parametrize(("name", "data", "encoded_hex"), COBS_EXAMPLES, ids=COBS_IDS)
 def test_cobs_decodes_the_published_examples(name, data, encoded_hex):
     assert cobs_decode(bytes.fromhex(encoded_hex)) == data
 
 
-@pytest.mark.parametrize("bad", [b"\x05\x11\x22", b"\x02\x00\x01"], ids=["code past end", "zero inside"])
+@pytest.mark.parametrize(
+    "bad", [b"\x05\x11\x22", b"\x02\x00\x01"], ids=["code past end", "zero inside"]
+)
 def test_cobs_decode_rejects_invalid_input_with_cobs_error(bad):
     with pytest.raises(CobsError):
         cobs_decode(bad)
