@@ -1,0 +1,1 @@
+"""One widget per piece of the dashboard; each redraws itself from the status it is bound to."""
