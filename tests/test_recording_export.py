@@ -164,3 +164,15 @@ def test_empty_run_exports_empty_columns(store, tmp_path):
     assert main(["export", "2", "--db", str(store), "--format", "npz", "--out", str(out)]) == 0
     with np.load(out) as npz:
         assert npz["x_m"].shape == (0,) and npz["events"].shape == (0,)
+
+
+def test_runs_tells_a_run_being_recorded_from_one_left_unfinished(tmp_path, capsys):
+    db = tmp_path / "live.db"
+    with Recorder(db) as recorder:
+        recorder.start_run(metadata())
+        recorder.put_event("link", "link", {"state": "up"})
+        recorder.put_sample(sample_row(0))
+        assert recorder.flush()
+        assert main(["runs", "--db", str(db), "--json"]) == 0
+        (live,) = json.loads(capsys.readouterr().out)
+        assert (live["outcome"], live["samples"]) == ("recording", 1)

@@ -24,7 +24,9 @@ store's writer lock, marks runs left open by a dead process as ``aborted``
     returned. Meant for one producer thread (the control cycle).
 ``put_event(kind, source, data, t_host_ns=None) -> bool``
     An event (mode change, operator command, interlock trip, link statistics,
-    fault) for the open run, or with no run if none is open. ``data`` must be
+    fault) for the open run, or with no run if none is open. ``t_host_ns``
+    defaults to ``host_clock_ns()``. ``data`` is serialised by the writer
+    thread, so hand over a dict you no longer change; it must be
     JSON-serialisable (other values are stored as their ``str``). Safe from any
     thread; dropped and counted when the queue is full.
 ``start_run(metadata) -> int`` / ``end_run(outcome, summary) -> None``
@@ -150,6 +152,11 @@ class _EndRun:
     events_dropped_total: int
 
 
+@dataclass(frozen=True, slots=True)
+class _Flush:
+    done: threading.Event
+
+
 @dataclass(slots=True)
 class _OpenRun:
     """The writer's running totals for the run being recorded."""
@@ -221,6 +228,7 @@ class Recorder:
         self._batch_samples = 0  # counted into the totals above only once the batch commits
         self._batch_events = 0
         self._batch_unassigned = 0
+        self._batch_flushes: list[threading.Event] = []
 
         self._wake = threading.Event()
         self._closing = False
@@ -309,7 +317,15 @@ class Recorder:
             )
         self._open_run_id = None
 
-    def _put_special(self, item: _Event | _StartRun | _EndRun) -> None:
+    def flush(self, timeout_s: float | None = None) -> bool:
+        if self._closed:
+            return True
+        done = threading.Event()
+        with self._special_lock:
+            self._put_special(_Flush(done))
+        return done.wait(timeout_s)
+
+    def _put_special(self, item: _Event | _StartRun | _EndRun | _Flush) -> None:
         # The count goes up before the append: the writer scans a batch for these
         # items only when it sees more put than it has taken.
         self._specials_put += 1
@@ -389,6 +405,7 @@ class Recorder:
         self._batch_samples = 0
         self._batch_events = 0
         self._batch_unassigned = 0
+        self._batch_flushes: list[threading.Event] = []
         started_s = time.perf_counter()
         try:
             conn.execute("BEGIN IMMEDIATE")
@@ -402,6 +419,9 @@ class Recorder:
         except sqlite3.Error as exc:
             self._fail(exc, items)
             return
+        finally:
+            for done in self._batch_flushes:
+                done.set()
         self._commit_times_s.append(time.perf_counter() - started_s)
         self._commits += 1
         self._last_commit_unix_ns = time.time_ns()
@@ -423,6 +443,8 @@ class Recorder:
                 self._insert_event(item)
             elif type(item) is _StartRun:
                 self._begin_run(item)
+            elif type(item) is _Flush:
+                self._batch_flushes.append(item.done)
             else:
                 self._finish_run(item)
         if samples:
@@ -545,8 +567,11 @@ class Recorder:
             self._on_error(reason)
 
     def _discard(self, items: list) -> None:
-        """After a failure: count what will never be written."""
+        """After a failure: count what will never be written, and release anyone flushing."""
         self._lost += sum(1 for item in items if type(item) is tuple)
+        for item in items:
+            if type(item) is _Flush:
+                item.done.set()
 
 
 _mode_of = itemgetter(MODE_INDEX)
