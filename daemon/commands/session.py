@@ -1,0 +1,94 @@
+"""`poise session`: one unattended session (home, arm, swing up, catch, balance, stop, disarm).
+
+Exits 0 only if the pendulum was balanced for the whole duration without a
+trip. With ``--sim`` (the default without ``--port``) the built-in simulated
+rig runs in lockstep, so a session takes seconds.
+"""
+
+from __future__ import annotations
+
+import argparse
+
+from daemon.commands.run import add_port_arguments, load
+
+NAME = "session"
+HELP = "run one whole session unattended and print a summary"
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    add_port_arguments(parser)
+    parser.add_argument(
+        "--duration", type=float, default=10.0, metavar="S", help="seconds of balance (default 10)"
+    )
+    parser.add_argument(
+        "--disturb", action="append", default=[], metavar="T:IMPULSE",
+        help="simulated rig: an impulse of IMPULSE N*s at the pendulum's centre of mass, "
+        "T s after balance begins (repeatable)",
+    )
+    parser.add_argument("--json", action="store_true", help="print the summary as JSON")
+
+
+def run(args: argparse.Namespace) -> int:
+    import asyncio
+    import json
+    import logging
+
+    from daemon.errors import OperatorError
+    from daemon.runtime.embedded_sim import SimOptions
+    from daemon.runtime.service import PoiseService
+    from daemon.runtime.session import BALANCED, parse_disturbance, run_session, summarise_run
+
+    logging.basicConfig(level=logging.ERROR, format="%(name)s %(levelname)s %(message)s")
+    if not args.duration > 0:
+        raise OperatorError(f"--duration must be > 0 seconds (got {args.duration})")
+    disturbances = [parse_disturbance(text) for text in args.disturb]
+    config, text = load(args)
+    sim = None if args.port else SimOptions(lockstep=True, seed=args.seed)
+
+    async def session() -> dict:
+        service = PoiseService(config, text, port_url=args.port, sim=sim)
+        await service.start()
+        service.install_signal_handlers()
+        try:
+            result = await run_session(service, args.duration, disturbances)
+        finally:
+            await service.close(outcome="aborted")
+        return summarise_run(config.recording.db_path, result)
+
+    summary = asyncio.run(session())
+    if args.json:
+        print(json.dumps(summary, indent=2))
+    else:
+        _print_table(summary)
+    return 0 if summary["outcome"] == BALANCED and not summary["trips"] else 1
+
+
+def _print_table(summary: dict) -> None:
+    from rich.console import Console
+    from rich.table import Table
+
+    table = Table(title=f"session: {summary['outcome']}", show_header=False)
+    table.add_column("field")
+    table.add_column("value", justify="right")
+
+    def show(value: object, spec: str = ".3f") -> str:
+        return "-" if value is None else format(value, spec) if isinstance(value, float) else str(value)
+
+    latency = summary["latency_us"]
+    rows = [
+        ("outcome", summary["outcome"] + (f" ({summary['detail']})" if summary["detail"] else "")),
+        ("swing-up", show(summary["swing_up_s"], ".2f") + " s"),
+        ("balanced for", show(summary["balance_s"], ".2f") + " s"),
+        ("balance rms angle", show(summary["balance_rms_angle_deg"], ".3f") + " deg"),
+        ("balance rms x", show(summary["balance_rms_x_m"], ".4f") + " m"),
+        ("max |x| in balance", show(summary["max_abs_x_m"], ".4f") + " m"),
+        ("samples / recorded / dropped",
+         f"{summary['samples']} / {summary['samples_recorded']} / {summary['dropped_samples']}"),
+        ("trips", ", ".join(f"{t['reason']} at {t['t_s']:.3f} s" for t in summary["trips"]) or "none"),
+        ("latency p50 / p99 / max",
+         f"{show(latency['p50'], '.1f')} / {show(latency['p99'], '.1f')} / {show(latency['max'], '.1f')} us"),
+        ("run", f"{summary['run_id']} in {summary['recording']}"),
+    ]
+    for name, value in rows:
+        table.add_row(name, value)
+    Console().print(table)

@@ -1,0 +1,69 @@
+"""Cart position hold (the READY state) and cart velocity following (the category 1 stop ramp).
+
+Both think in cart acceleration and turn it into a drive command through the
+inverse plant model (:class:`AccelerationDrive`), like homing and swing-up.
+
+:class:`CartHold` is a critically damped position loop on the set-point,
+``a = wc^2 (x_sp - x) - 2 wc v``, plus a swing damper for the hanging
+pendulum: the pendulum's energy changes at ``m l a cos(th) w`` (see
+:mod:`.swing_energy`), so ``a = -k_d cos(th) w`` takes energy out and a swing
+left by homing dies away in a few seconds instead of minutes.
+
+:class:`CartVelocityFollower` is ``a = (v_sp - v) / tau``, saturated; the stop
+ramp hands it a velocity set-point falling to zero.
+"""
+
+from __future__ import annotations
+
+import math
+
+from daemon.control.drive_model import AccelerationDrive, clamp
+from sim_device.plant import PlantParams
+
+__all__ = ["CartHold", "CartVelocityFollower"]
+
+HOLD_BANDWIDTH_HZ = 0.3
+HOLD_MAX_ACCEL_MPS2 = 2.0
+SWING_DAMPING_PER_S = 1.0  # m/s^2 of cart acceleration per rad/s of pendulum rate
+FOLLOW_TIME_CONSTANT_S = 0.05
+
+
+class CartHold:
+    """Hold the cart at ``set_point_m`` and damp the pendulum's swing: ``update(x, v, th, w) -> drive``."""
+
+    __slots__ = ("_2wc", "_a_max", "_damping", "_drive", "_wc2", "set_point_m")
+
+    def __init__(self, params: PlantParams, bandwidth_hz: float = HOLD_BANDWIDTH_HZ,
+                 max_accel_mps2: float = HOLD_MAX_ACCEL_MPS2,
+                 swing_damping_per_s: float = SWING_DAMPING_PER_S):
+        wc = 2.0 * math.pi * bandwidth_hz
+        self._wc2 = wc * wc
+        self._2wc = 2.0 * wc
+        self._a_max = max_accel_mps2
+        self._damping = swing_damping_per_s
+        self._drive = AccelerationDrive(params)
+        self.set_point_m = 0.0
+
+    def reset(self, state: tuple[float, float, float, float], last_drive: float) -> None:
+        """Nothing to initialise: the loop is static; kept for the common controller shape."""
+
+    def update(self, x: float, v: float, theta: float, omega: float) -> float:
+        cos_th = math.cos(theta)
+        a = self._wc2 * (self.set_point_m - x) - self._2wc * v - self._damping * cos_th * omega
+        return self._drive.command_for(clamp(a, self._a_max), v, math.sin(theta), cos_th, omega)
+
+
+class CartVelocityFollower:
+    """Follow a cart velocity set-point: ``update(v_sp, x, v, th, w) -> drive``."""
+
+    __slots__ = ("_a_max", "_drive", "_inv_tau")
+
+    def __init__(self, params: PlantParams, max_accel_mps2: float,
+                 time_constant_s: float = FOLLOW_TIME_CONSTANT_S):
+        self._a_max = max_accel_mps2
+        self._inv_tau = 1.0 / time_constant_s
+        self._drive = AccelerationDrive(params)
+
+    def update(self, v_setpoint: float, x: float, v: float, theta: float, omega: float) -> float:
+        a = clamp((v_setpoint - v) * self._inv_tau, self._a_max)
+        return self._drive.command_for(a, v, math.sin(theta), math.cos(theta), omega)

@@ -1,0 +1,206 @@
+"""The protocol's non-telemetry traffic on one port: handshake, acknowledged commands, heartbeats.
+
+The control cycle owns the port's reader callback; it hands every received
+message that is not Telemetry to :meth:`Link.on_message`. The link matches
+Replies (and the DeviceHello answering Identify) to the commands waiting for
+them, resends unanswered commands with the same seq (:class:`RetryTracker`,
+driven by :meth:`Link.poll`), and treats a DeviceHello nobody asked for as a
+device reset.
+
+Handshake (:meth:`Link.handshake`): Identify -> DeviceHello, refused with one
+line naming both protocol versions and both schema fingerprints if they differ;
+then ClearFaults (the reset flag every power-up sets) and Configure (sample rate
+and device watchdog), each retried until answered. Telemetry starts at seq 0
+once the device accepts Configure.
+
+Heartbeats: while the cycle answers telemetry its Drive frames feed the device
+watchdog. :meth:`Link.poll` sends a Heartbeat whenever no frame at all has gone
+out for a third of the device watchdog time (the device sent no telemetry, so
+there was nothing to answer), so a live host never lets the device watchdog
+trip, and a dead one always does.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import logging
+import os
+from collections.abc import Callable
+
+from protocol import (
+    ClearFaults,
+    Configure,
+    DeviceHello,
+    FaultReport,
+    FrameDecoder,
+    Heartbeat,
+    Identify,
+    LinkStats,
+    Message,
+    Reply,
+    ReplyResult,
+    RetryTracker,
+    encode,
+    hello_mismatch,
+)
+
+log = logging.getLogger("poise.link")
+
+RETRY_TIMEOUT_S = 0.1
+MAX_ATTEMPTS = 5
+
+
+class LinkDown(Exception):
+    """The link cannot carry on (write failed, no answer, protocol mismatch); one line why."""
+
+
+class Link:
+    """Sends host commands on ``fd`` and matches the device's answers to them."""
+
+    def __init__(
+        self,
+        fd: int,
+        watchdog_ms: int,
+        clock: Callable[[], float],
+        *,
+        on_device_reset: Callable[[DeviceHello], None],
+        on_fault_report: Callable[[FaultReport], None],
+        on_write_error: Callable[[OSError], None],
+    ):
+        self.fd = fd
+        self._clock = clock
+        self.stats = LinkStats()
+        self.decoder = FrameDecoder(self.stats)
+        self.hello: DeviceHello | None = None
+        self.device_resets = 0
+        self.heartbeats_sent = 0
+        self.tx_bytes_dropped = 0
+        self._heartbeat_after_s = watchdog_ms / 3000.0
+        self._frames_tx_at_check = -1
+        self._next_heartbeat_check_s = 0.0
+        self._seq = 0
+        self._retry = RetryTracker(RETRY_TIMEOUT_S, MAX_ATTEMPTS)
+        self._answers: dict[tuple[int, int], asyncio.Future[Message]] = {}
+        self._on_device_reset = on_device_reset
+        self._on_fault_report = on_fault_report
+        self._on_write_error = on_write_error
+
+    # ------------------------------------------------------------------ sending
+
+    def write(self, frame: bytes) -> None:
+        """Write one whole frame now; what the port cannot take is dropped and counted."""
+        try:
+            sent = os.write(self.fd, frame)
+        except BlockingIOError:
+            sent = 0
+        except OSError as exc:
+            self._on_write_error(exc)
+            return
+        if sent < len(frame):
+            self.tx_bytes_dropped += len(frame) - sent
+        self.stats.record_tx(frame)
+
+    def _next_seq(self) -> int:
+        seq = self._seq
+        self._seq = (seq + 1) & 0xFFFF
+        return seq
+
+    def send(self, make: Callable[[int], Message]) -> asyncio.Future[Message]:
+        """Send an acknowledged command built by ``make(seq)``; the future gets its answer.
+
+        The future fails with :class:`LinkDown` when every attempt went unanswered.
+        """
+        command = make(self._next_seq())
+        future: asyncio.Future[Message] = asyncio.get_running_loop().create_future()
+        self._answers[(command.TYPE_ID, command.seq)] = future
+        self._retry.track(command, self._clock())
+        self.write(encode(command))
+        return future
+
+    def send_unacked(self, make: Callable[[int], Message]) -> None:
+        """Send a command nobody answers (Heartbeat)."""
+        self.write(encode(make(self._next_seq())))
+
+    async def request(self, make: Callable[[int], Message]) -> Message:
+        """Send an acknowledged command and wait for its answer (with retries)."""
+        return await self.send(make)
+
+    # ------------------------------------------------------------------ receiving
+
+    def on_message(self, message: Message) -> None:
+        """Everything the device sends except Telemetry."""
+        kind = type(message)
+        if kind is Reply or kind is DeviceHello:
+            answered = self._retry.resolve(message)
+            if answered is not None:
+                future = self._answers.pop((answered.TYPE_ID, answered.seq), None)
+                if future is not None and not future.done():
+                    future.set_result(message)
+                return
+            if kind is DeviceHello:
+                self.device_resets += 1
+                log.warning("device %r said hello unasked: it has reset", message.device_id)
+                self._on_device_reset(message)
+            return
+        if kind is FaultReport:
+            self._on_fault_report(message)
+
+    def poll(self) -> None:
+        """Resend unanswered commands, fail those out of attempts, heartbeat if the line is quiet."""
+        now_s = self._clock()
+        due = self._retry.poll(now_s)
+        for command in due.resend:
+            self.write(encode(command))
+        for command in due.failed:
+            future = self._answers.pop((command.TYPE_ID, command.seq), None)
+            if future is not None and not future.done():
+                future.set_exception(
+                    LinkDown(
+                        f"device did not answer {type(command).__name__} (seq {command.seq}) "
+                        f"after {MAX_ATTEMPTS} attempts {RETRY_TIMEOUT_S * 1000:.0f} ms apart"
+                        + self._last_error_hint()
+                    )
+                )
+        if now_s >= self._next_heartbeat_check_s:
+            if self.stats.frames_tx == self._frames_tx_at_check:
+                self.send_unacked(Heartbeat)
+                self.heartbeats_sent += 1
+            self._frames_tx_at_check = self.stats.frames_tx
+            self._next_heartbeat_check_s = now_s + self._heartbeat_after_s
+
+    def fail_pending(self, reason: str) -> None:
+        """The port is gone: every waiting command fails with ``reason``."""
+        for future in self._answers.values():
+            if not future.done():
+                future.set_exception(LinkDown(reason))
+        self._answers.clear()
+        self._retry = RetryTracker(RETRY_TIMEOUT_S, MAX_ATTEMPTS)
+
+    def _last_error_hint(self) -> str:
+        error = self.decoder.last_error
+        return f"; last receive error: {error}" if error else ""
+
+    # ------------------------------------------------------------------ handshake
+
+    async def identify(self) -> DeviceHello:
+        """Identify -> DeviceHello; raise LinkDown naming both fingerprints on a mismatch."""
+        hello = await self.request(Identify)
+        assert isinstance(hello, DeviceHello)
+        problem = hello_mismatch(hello)
+        if problem is not None:
+            raise LinkDown(f"refusing the rig: {problem}")
+        self.hello = hello
+        return hello
+
+    async def handshake(self, sample_rate_hz: int, watchdog_ms: int) -> DeviceHello:
+        """Identify, ClearFaults, Configure; returns the DeviceHello. Raises LinkDown."""
+        hello = await self.identify()
+        await self.request(ClearFaults)  # a refusal (button pressed) is seen in telemetry
+        reply = await self.request(lambda seq: Configure(seq, sample_rate_hz, watchdog_ms))
+        assert isinstance(reply, Reply)
+        if reply.result != ReplyResult.ACCEPTED:
+            raise LinkDown(
+                f"device refused Configure(sample_rate_hz={sample_rate_hz}, watchdog_ms="
+                f"{watchdog_ms}): {ReplyResult(reply.result).name}"
+            )
+        return hello

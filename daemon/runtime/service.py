@@ -1,0 +1,557 @@
+"""The daemon service: one rig, and everything that runs around its control cycle.
+
+:class:`PoiseService` owns the config, the port (pyserial, or the built-in
+simulated rig on a pty), the link, the control cycle, the supervisor, the
+recorder, the control API server, the watchdog and the signal handlers. It is
+the object the control API serves: :meth:`execute` and :meth:`status`.
+
+Signals (:meth:`install_signal_handlers`):
+
+- SIGINT, SIGTERM: controlled stop of any motion, drive off, the recording
+  closed cleanly, the process exits 0.
+- SIGUSR1: e-stop (latched, stop category per ``stop.category``), exactly as the
+  ``estop`` command; clear it with ``poise reset``.
+
+Link events: a DeviceHello nobody asked for means the device reset (trip
+``device.reset``; the link is configured again so telemetry resumes, the
+fault stays latched); a port that fails or closes trips ``link.lost`` and the
+service keeps trying to reopen it; the watchdog trips ``link.timeout`` when
+telemetry stops. An operator ``reset`` also sends ClearFaults to the device; the
+faults it clears are not acted on again until the device has answered.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import gc
+import logging
+import signal
+import sys
+from importlib import metadata
+
+from daemon.api.server import ApiServer
+from daemon.config import PoiseConfig
+from daemon.control.homing import Homing
+from daemon.control.rig_setup import build_control_set
+from daemon.errors import CommandRefused, OperatorError
+from daemon.link import Link, LinkDown, Port, open_port
+from daemon.recording import Recorder, RecordingError, RunMetadata
+from daemon.runtime.cycle import ControlCycle
+from daemon.runtime.embedded_sim import SimOptions, start_embedded_rig
+from daemon.runtime.watchdog import run_watchdog
+from daemon.supervisor import Action, Event, State, Supervisor, Trip, state_code_table
+from daemon.supervisor.machine import LogEntry
+from daemon.supervisor.states import MOTION_STATES
+from protocol import (
+    DRIVE_KIND_NEWTONS,
+    DRIVE_KIND_VOLTS,
+    PROTOCOL_VERSION,
+    ClearFaults,
+    DeviceHello,
+    FaultReport,
+    Stop,
+)
+from sim_device.rig import SimulatedRig
+
+log = logging.getLogger("poise.service")
+
+HOUSEKEEPING_S = 0.02
+SUMMARY_INTERVAL_S = 10.0
+RECONNECT_INTERVAL_S = 1.0
+FIRST_TELEMETRY_TIMEOUT_S = 5.0
+STOP_WAIT_S = 10.0
+TRIP_FRAMES_KEPT = 8
+# The recorder's writer thread shares the interpreter lock with the control cycle; Python hands
+# the lock over every 5 ms by default, a whole overrun budget. 0.5 ms bounds that wait.
+GIL_SWITCH_INTERVAL_S = 0.0005  # last link frames each way stored with a trip event
+
+
+class PoiseService:
+    """One rig under supervision. ``await start()``, then serve; ``await close()`` to finish."""
+
+    def __init__(
+        self,
+        config: PoiseConfig,
+        config_text: str,
+        *,
+        port_url: str | None = None,
+        sim: SimOptions | None = None,
+        serve_api: bool = True,
+    ):
+        if (port_url is None) == (sim is None):
+            raise ValueError("give exactly one of port_url and sim")
+        self.config = config
+        self.config_text = config_text
+        self.port_url = port_url
+        self.sim_options = sim
+        self.serve_api = serve_api
+        self.rig: SimulatedRig | None = None
+        self.port: Port | None = None
+        self.link: Link | None = None
+        self.hello: DeviceHello | None = None
+        self.recorder: Recorder | None = None
+        self.api: ApiServer | None = None
+        self.run_id: int | None = None
+        self.handshaking = False
+        self.closing = False
+        self.trips: list[tuple[str, float]] = []
+        self.supervisor = Supervisor(config, clock=self._device_time_s, on_entry=self._on_log_entry)
+        controls = build_control_set(config)
+        self.cycle = ControlCycle(
+            self.supervisor,
+            controls,
+            Homing(controls.params, config.homing),
+            put_sample=_discard_sample,
+            on_trip=self._record_trip,
+            on_link_lost=self._link_lost,
+            on_telemetry_resumed=self._telemetry_resumed,
+        )
+        self._tasks: list[asyncio.Task] = []
+        self._reconnect_task: asyncio.Task | None = None
+        self._shutdown_requested: asyncio.Event | None = None
+        self._loop: asyncio.AbstractEventLoop | None = None
+        self.rate_known: asyncio.Event | None = None
+        self._default_switch_interval_s = sys.getswitchinterval()
+
+    # ------------------------------------------------------------------ life cycle
+
+    async def start(self) -> None:
+        """Open the port (or start the simulated rig), handshake, serve; raises OperatorError."""
+        self._loop = loop = asyncio.get_running_loop()
+        self._shutdown_requested = asyncio.Event()
+        self.rate_known = asyncio.Event()
+        url = self.port_url
+        if self.sim_options is not None:
+            self.rig = start_embedded_rig(self.config, self.sim_options, loop)
+            url = self.rig.where
+        try:
+            self.recorder = Recorder.from_settings(
+                self.config.recording, on_error=self._recording_failed_threadsafe
+            )
+        except RecordingError as exc:
+            await self._release()
+            raise OperatorError(str(exc)) from None
+        self.cycle.put_sample = self.recorder.put_sample
+        self._tasks.append(asyncio.create_task(self._housekeeping(), name="poise-housekeeping"))
+        try:
+            await self._connect(url)
+        except (LinkDown, OperatorError) as exc:
+            await self._release()
+            raise OperatorError(str(exc)) from None
+        self._tasks.append(
+            asyncio.create_task(
+                run_watchdog(self.cycle, self.supervisor, self._expecting_telemetry,
+                             self._watchdog_trip, self.rate_known),
+                name="poise-watchdog",
+            )
+        )
+        if self.serve_api:
+            self.api = ApiServer(self, self.config.api)
+            try:
+                await self.api.start()
+            except OperatorError:
+                self.api = None
+                await self._release()
+                raise
+        try:
+            async with asyncio.timeout(FIRST_TELEMETRY_TIMEOUT_S):
+                await self.cycle.wait_for_state(set(State) - {State.DISCONNECTED})
+                await self.rate_known.wait()
+        except TimeoutError:
+            await self._release()
+            raise OperatorError(
+                f"rig at {url} accepted Configure but sent no telemetry in "
+                f"{FIRST_TELEMETRY_TIMEOUT_S:g} s"
+            ) from None
+        gc.collect()
+        gc.freeze()
+        sys.setswitchinterval(GIL_SWITCH_INTERVAL_S)
+        log.info("serving rig %s on %s", self.config.rig.id, url)
+
+    async def _connect(self, url: str) -> None:
+        loop = asyncio.get_running_loop()
+        port = open_port(url)
+        link = Link(
+            port.fd,
+            self.config.sampling.device_watchdog_ms,
+            loop.time,
+            on_device_reset=self._device_reset,
+            on_fault_report=self._fault_report,
+            on_write_error=lambda exc: self._link_lost(
+                f"writing the rig port failed: {exc.strerror or exc}"
+            ),
+        )
+        self.port, self.link = port, link
+        self.cycle.attach(link, loop)
+        try:
+            await self._handshake(link)
+        except LinkDown:
+            self.cycle.detach(loop)
+            port.close()
+            self.port = self.link = None
+            raise
+
+    async def _handshake(self, link: Link) -> None:
+        sampling = self.config.sampling
+        self.handshaking = True
+        try:
+            self.hello = await link.handshake(sampling.rate_hz, sampling.device_watchdog_ms)
+        finally:
+            self.handshaking = False
+        self.supervisor.config_problems = config_mismatches(self.config, self.hello)
+        for problem in self.supervisor.config_problems:
+            log.warning("rig and config disagree: %s", problem)
+
+    def request_shutdown(self) -> None:
+        if self._shutdown_requested is not None:
+            self._shutdown_requested.set()
+
+    async def wait_for_shutdown_request(self) -> None:
+        assert self._shutdown_requested is not None
+        await self._shutdown_requested.wait()
+
+    def install_signal_handlers(self) -> None:
+        loop = asyncio.get_running_loop()
+        loop.add_signal_handler(signal.SIGINT, self.request_shutdown)
+        loop.add_signal_handler(signal.SIGTERM, self.request_shutdown)
+        loop.add_signal_handler(signal.SIGUSR1, self._signal_estop)
+
+    def _signal_estop(self) -> None:
+        try:
+            self.execute("estop", {}, "signal")
+        except CommandRefused as refused:
+            log.error("e-stop by signal refused: %s", refused.reason)
+
+    async def stop_motion(self, source: str) -> None:
+        """Controlled stop of any motion; returns once the drive is off (or after STOP_WAIT_S)."""
+        machine = self.supervisor.machine
+        if machine.state in MOTION_STATES and machine.state is not State.STOPPING:
+            with contextlib.suppress(CommandRefused):
+                self.execute("stop", {}, source)
+        if machine.state in MOTION_STATES or machine.ramp is not None:
+            with contextlib.suppress(TimeoutError):
+                async with asyncio.timeout(STOP_WAIT_S):
+                    await self.cycle.wait_for_state(set(State) - MOTION_STATES)
+
+    async def close(self, outcome: str = "completed") -> None:
+        """Controlled stop, drive off, recording closed, port and API closed."""
+        if self.closing:
+            return
+        self.closing = True
+        if self.link is not None and self.cycle.telemetry_flowing:
+            await self.stop_motion("signal")
+            with contextlib.suppress(LinkDown, TimeoutError):
+                async with asyncio.timeout(1.0):
+                    await self.link.request(Stop)
+        if self.run_id is not None:
+            self.end_recording(outcome, {})
+        await self._release()
+
+    async def _release(self) -> None:
+        """Free everything start() took, whatever state it got to."""
+        self.closing = True
+        for task in [*self._tasks, self._reconnect_task]:
+            if task is not None:
+                task.cancel()
+        for task in [*self._tasks, self._reconnect_task]:
+            if task is not None:
+                with contextlib.suppress(asyncio.CancelledError):
+                    await task
+        self._tasks.clear()
+        if self.api is not None:
+            await self.api.close()
+            self.api = None
+        if self._loop is not None and self.link is not None:
+            self.cycle.detach(self._loop)
+            self.link.fail_pending("the daemon is shutting down")
+        if self.port is not None:
+            self.port.close()
+            self.port = self.link = None
+        if self.recorder is not None:
+            self.recorder.close()
+            self.cycle.put_sample = _discard_sample
+            self.recorder = None
+        if self.rig is not None:
+            self.rig.close()
+            self.rig = None
+        gc.enable()
+        sys.setswitchinterval(self._default_switch_interval_s)
+
+    # ------------------------------------------------------------------ recording
+
+    def start_recording(self, note: str = "") -> int:
+        """Open a new run (ending the open one first); returns its id."""
+        assert self.recorder is not None, "start() first"
+        if self.run_id is not None:
+            self.end_recording("completed", {})
+        firmware = "unknown"
+        if self.hello is not None:
+            h = self.hello
+            firmware = f"{h.firmware_major}.{h.firmware_minor}.{h.firmware_patch}"
+        self.run_id = self.recorder.start_run(
+            RunMetadata(
+                rig_id=self.config.rig.id,
+                config_text=self.config_text,
+                software_version=_software_version(),
+                protocol_version=str(PROTOCOL_VERSION),
+                firmware_version=firmware,
+                drive_kind=self.config.drive.kind,
+                mode_names=state_code_table(),
+                operator_notes=note,
+            )
+        )
+        return self.run_id
+
+    def end_recording(self, outcome: str, summary: dict) -> None:
+        if self.recorder is not None and self.run_id is not None:
+            self.recorder.end_run(outcome, summary)
+        self.run_id = None
+
+    def _recording_failed_threadsafe(self, reason: str) -> None:
+        if self._loop is not None and not self._loop.is_closed():
+            self._loop.call_soon_threadsafe(self._recording_failed, reason)
+
+    def _recording_failed(self, reason: str) -> None:
+        trip = Trip("recording.failed", Action.CONTROLLED_STOP, reason, {})
+        self._trip(trip)
+
+    # ------------------------------------------------------------------ control API target
+
+    def execute(self, command: str, args: dict, source: str) -> dict:
+        if command == "record":
+            if args.get("on"):
+                return {"run_id": self.start_recording(str(args.get("note", "")))}
+            self.end_recording("completed", {})
+            return {"run_id": None}
+        faults_to_clear = 0
+        if command == "reset" and self.cycle.last_telemetry is not None:
+            faults_to_clear = self.cycle.last_telemetry.faults
+        result = self.supervisor.execute(command, args, source)
+        if command == "reset" and self.link is not None:
+            self._clear_device_faults(faults_to_clear)
+        self.cycle.sync()
+        return result
+
+    def _clear_device_faults(self, faults: int) -> None:
+        cycle = self.cycle
+        cycle.fault_mask = ~faults & 0xFFFF
+
+        def answered(future: asyncio.Future) -> None:
+            cycle.fault_mask = 0xFFFF
+            if not future.cancelled() and future.exception() is not None:
+                log.error("ClearFaults unanswered: %s", future.exception())
+
+        self.link.send(ClearFaults).add_done_callback(answered)
+
+    def status(self) -> dict:
+        status = self.supervisor.status()
+        status["link"] = self.link_status()
+        status["recording"] = self.recording_status()
+        status["cycle"] = {
+            "samples": self.cycle.samples,
+            "missed": self.cycle.missed,
+            "compute_us": self.cycle.timing.compute_us(),
+            "stages_us": self.cycle.timing.stage_us(),
+        }
+        return status
+
+    def link_status(self) -> dict:
+        link, cycle = self.link, self.cycle
+        latency = cycle.timing.latency_us()
+        stats = link.stats if link is not None else None
+        return {
+            "connected": self.supervisor.machine.link_up and link is not None,
+            "rate_hz": self.supervisor.link_rate_hz,
+            "latency_us_p50": latency["p50"],
+            "latency_us_p99": latency["p99"],
+            "gaps": stats.gaps if stats else 0,
+            "crc_failures": stats.crc_failures if stats else 0,
+            "frames_rx": stats.frames_rx if stats else 0,
+            "frames_tx": stats.frames_tx if stats else 0,
+            "missed": cycle.missed,
+            "summary": self.link_summary(),
+        }
+
+    def link_summary(self) -> str:
+        """One line for logs and bug reports: link counters, misses, latency."""
+        if self.link is None:
+            return "link: not connected"
+        latency = self.cycle.timing.latency_us()
+        return (
+            f"{self.link.stats.summary()} missed={self.cycle.missed} "
+            f"heartbeats={self.link.heartbeats_sent} device_resets={self.link.device_resets} "
+            f"tx_bytes_dropped={self.link.tx_bytes_dropped} latency_us p50={latency['p50']:.1f} "
+            f"p99={latency['p99']:.1f} max={latency['max']:.1f}"
+        )
+
+    def recording_status(self) -> dict:
+        if self.recorder is None:
+            return {"run_id": None, "samples": 0, "dropped": 0, "path": None, "active": False}
+        stats = self.recorder.stats()
+        return {
+            "run_id": self.run_id,
+            "samples": stats.written,
+            "dropped": stats.dropped,
+            "path": self.recorder.db_path,
+            "active": self.run_id is not None,
+            "error": stats.error,
+        }
+
+    # ------------------------------------------------------------------ events
+
+    def _device_time_s(self) -> float:
+        return self.cycle.t_s
+
+    def _on_log_entry(self, entry: LogEntry) -> None:
+        if self.recorder is not None:
+            self.recorder.put_event(
+                f"supervisor.{entry.kind}", entry.source, {"t_s": entry.t_s, "text": entry.text}
+            )
+
+    def _record_trip(self, trip: Trip, t_s: float) -> None:
+        """Store a trip with the last link frames each way (the latch itself is the supervisor's)."""
+        self.trips.append((trip.name, t_s))
+        log.warning("interlock %s tripped: %s", trip.name, trip.reason)
+        if self.recorder is None:
+            return
+        data: dict = {"name": trip.name, "reason": trip.reason, "t_s": t_s,
+                      "action": trip.action.name, "values": trip.values}
+        if self.link is not None:
+            stats = self.link.stats
+            data["rx_frames"] = [chunk.hex(" ") for _, chunk, _ in list(stats.rx_frames)[-TRIP_FRAMES_KEPT:]]
+            data["tx_frames"] = [chunk.hex(" ") for _, chunk, _ in list(stats.tx_frames)[-TRIP_FRAMES_KEPT:]]
+        self.recorder.put_event("interlock.trip", "interlock", data)
+
+    def _trip(self, trip: Trip) -> None:
+        """A trip found outside the per-sample check: latch it, record it, act on it now."""
+        t_s = self.cycle.t_s
+        self.supervisor.trip(trip, t_s)
+        self._record_trip(trip, t_s)
+        self.cycle.sync()
+
+    def _watchdog_trip(self, trip: Trip) -> None:
+        self._trip(trip)
+        if trip.name == "link.timeout":
+            self.cycle.telemetry_flowing = False
+            self.supervisor.notify(Event.LINK_DOWN, "link", self.cycle.t_s, cause=trip.reason)
+            self.cycle.sync()
+
+    def _telemetry_resumed(self) -> None:
+        if not self.supervisor.machine.link_up:
+            self.supervisor.notify(Event.LINK_UP, "link", self.cycle.t_s, cause="telemetry flowing")
+            self.cycle.sync()
+
+    def _expecting_telemetry(self) -> bool:
+        return self.link is not None and not self.handshaking and not self.closing
+
+    def _device_reset(self, hello: DeviceHello) -> None:
+        trip = Trip(
+            "device.reset",
+            Action.DRIVE_OFF,
+            f"device {hello.device_id!r} said hello unasked: it has reset",
+            {"resets": float(self.link.device_resets if self.link else 0)},
+        )
+        self._trip(trip)
+        self.cycle.telemetry_flowing = False
+        self.cycle.device_armed = False
+        if self.link is not None and not self.closing:
+            self._tasks.append(asyncio.create_task(self._reconfigure(self.link)))
+
+    async def _reconfigure(self, link: Link) -> None:
+        try:
+            await self._handshake(link)
+        except LinkDown as exc:
+            self._link_lost(f"device reset and did not take its configuration again: {exc}")
+
+    def _fault_report(self, report: FaultReport) -> None:
+        log.warning("device reports faults 0x%04x (code %d, detail %g)", report.faults,
+                    report.code, report.detail)
+        if self.recorder is not None:
+            self.recorder.put_event(
+                "device.fault_report", "device",
+                {"faults": report.faults, "code": report.code, "detail": report.detail},
+            )
+
+    def _link_lost(self, reason: str) -> None:
+        if self.link is None:
+            return
+        loop = asyncio.get_running_loop()
+        self.cycle.detach(loop)
+        self.link.fail_pending(reason)
+        if self.port is not None:
+            self.port.close()
+        self.port = self.link = None
+        self._trip(Trip("link.lost", Action.DRIVE_OFF, reason, {}))
+        self.supervisor.notify(Event.LINK_DOWN, "link", self.cycle.t_s, cause=reason)
+        self.cycle.sync()
+        if not self.closing:
+            self._reconnect_task = asyncio.create_task(self._reconnect(), name="poise-reconnect")
+
+    async def _reconnect(self) -> None:
+        url = self.rig.where if self.rig is not None else self.port_url
+        while not self.closing:
+            await asyncio.sleep(RECONNECT_INTERVAL_S)
+            try:
+                await self._connect(url)
+            except (LinkDown, OperatorError) as exc:
+                log.info("rig port %s not back yet: %s", url, exc)
+                continue
+            log.info("rig port %s reconnected", url)
+            return
+
+    async def _housekeeping(self) -> None:
+        """Retries and heartbeats every HOUSEKEEPING_S; a one-line link summary every so often."""
+        loop = asyncio.get_running_loop()
+        next_summary = loop.time() + SUMMARY_INTERVAL_S
+        while True:
+            await asyncio.sleep(HOUSEKEEPING_S)
+            if self.link is not None:
+                self.link.poll()
+            if loop.time() >= next_summary:
+                next_summary += SUMMARY_INTERVAL_S
+                line = self.link_summary()
+                log.info("%s", line)
+                if self.recorder is not None:
+                    self.recorder.put_event("link.summary", "link", {"summary": line})
+
+
+def config_mismatches(config: PoiseConfig, hello: DeviceHello) -> tuple[str, ...]:
+    """Where the device's own description disagrees with the rig config (each blocks arming)."""
+    problems = []
+    kind = DRIVE_KIND_VOLTS if config.drive.kind == "voltage" else DRIVE_KIND_NEWTONS
+    if hello.drive_kind != kind:
+        problems.append(
+            f"drive.kind: config says {config.drive.kind!r}, the device drives in "
+            f"{'volts' if hello.drive_kind == DRIVE_KIND_VOLTS else 'newtons'}"
+        )
+    if config.drive.limit > hello.drive_limit * (1 + 1e-6):
+        problems.append(
+            f"drive.limit: config {config.drive.limit:g} exceeds the device's {hello.drive_limit:g}"
+        )
+    if abs(hello.cart_counts_per_m - config.encoders.cart_counts_per_m) > 1e-3 * config.encoders.cart_counts_per_m:
+        problems.append(
+            f"encoders.cart_counts_per_m: config {config.encoders.cart_counts_per_m:g}, "
+            f"device {hello.cart_counts_per_m:g}"
+        )
+    if hello.pendulum_counts_per_rev != config.encoders.pendulum_counts_per_rev:
+        problems.append(
+            f"encoders.pendulum_counts_per_rev: config {config.encoders.pendulum_counts_per_rev}, "
+            f"device {hello.pendulum_counts_per_rev}"
+        )
+    if abs(hello.track_length_m - config.track.length_m) > 1e-3:
+        problems.append(
+            f"track.length_m: config {config.track.length_m:g} m, device {hello.track_length_m:g} m"
+        )
+    return tuple(problems)
+
+
+def _discard_sample(row: tuple) -> bool:
+    return False
+
+
+def _software_version() -> str:
+    try:
+        return metadata.version("poise")
+    except metadata.PackageNotFoundError:
+        return "unknown"

@@ -1,0 +1,230 @@
+"""One unattended session: home, arm, swing up, catch, balance for a while, stop, disarm.
+
+:func:`run_session` drives a started :class:`PoiseService` through the same
+operator commands a person would send (source ``"session"``), waiting on the
+rig's own clock (device time), so a lockstep simulated rig runs it in seconds
+and a real rig in real time. Disturbances (``T:IMPULSE``) are horizontal
+impulses in N s at the pendulum's centre of mass, T seconds after balance
+begins, applied through the simulated rig's API.
+
+:func:`summarise_run` reads the recorded run back from the run store and adds
+the figures computed from every recorded sample (balance RMS, latency
+percentiles, recorded and dropped counts).
+"""
+
+from __future__ import annotations
+
+import asyncio
+import math
+from dataclasses import dataclass, field
+
+from daemon.errors import CommandRefused, OperatorError
+from daemon.recording.schema import SAMPLE_COLUMN_NAMES
+from daemon.recording.store import get_run, open_for_reading, sample_chunks
+from daemon.runtime.service import PoiseService
+from daemon.runtime.timing import percentile
+from daemon.supervisor import State
+
+HOMING_TIMEOUT_S = 120.0
+SETTLE_TIMEOUT_S = 30.0
+SETTLE_POLL_S = 0.2
+SWING_UP_TIMEOUT_S = 60.0
+STOP_TIMEOUT_S = 10.0
+WALL_TIMEOUT_FACTOR = 4.0  # a device-time wait gives up after this much more wall time (rig silent)
+BALANCED = "balanced"
+
+_LATCHED = {State.FAULT, State.ESTOP, State.DISCONNECTED}
+_COL = {name: index for index, name in enumerate(SAMPLE_COLUMN_NAMES)}
+
+
+@dataclass(frozen=True)
+class Disturbance:
+    after_balance_s: float
+    impulse_ns: float
+
+
+def parse_disturbance(text: str) -> Disturbance:
+    """``T:IMPULSE`` (seconds after balance begins : newton-seconds); OperatorError if malformed."""
+    parts = text.split(":")
+    try:
+        if len(parts) != 2:
+            raise ValueError
+        at_s, impulse = float(parts[0]), float(parts[1])
+    except ValueError:
+        raise OperatorError(
+            f"--disturb {text!r}: expected T:IMPULSE, e.g. 2.5:0.02 (seconds after balance "
+            "begins : newton-seconds)"
+        ) from None
+    if not (math.isfinite(at_s) and at_s >= 0.0 and math.isfinite(impulse)):
+        raise OperatorError(f"--disturb {text!r}: T must be >= 0 and IMPULSE finite")
+    return Disturbance(at_s, impulse)
+
+
+@dataclass
+class SessionResult:
+    outcome: str
+    detail: str = ""
+    run_id: int | None = None
+    swing_up_s: float | None = None
+    balance_s: float = 0.0
+    samples: int = 0
+    trips: list[dict] = field(default_factory=list)
+
+
+class _Stopped(Exception):
+    """The session cannot go on; ``outcome`` and ``detail`` say why."""
+
+    def __init__(self, outcome: str, detail: str):
+        super().__init__(detail)
+        self.outcome = outcome
+        self.detail = detail
+
+
+async def run_session(
+    service: PoiseService, duration_s: float, disturbances: list[Disturbance]
+) -> SessionResult:
+    """Run one session on a started service; the run is recorded and ended here."""
+    if disturbances and service.rig is None:
+        raise OperatorError("--disturb needs the simulated rig (--sim)")
+    cycle = service.cycle
+    trips_before = len(service.trips)
+    result = SessionResult(outcome=BALANCED)
+    result.run_id = service.start_recording("poise session")
+    samples_before = cycle.samples
+    try:
+        await _command(service, "home")
+        await _wait_state(service, {State.IDLE} | _LATCHED, HOMING_TIMEOUT_S, "homing")
+        if not service.supervisor.machine.homed:
+            raise _Stopped("homing_failed", "homing did not finish")
+        await _command(service, "arm")
+        await _swing_up_when_still(service)
+        t_swing = cycle.t_s
+        state = await _wait_state(
+            service, {State.BALANCE, State.IDLE} | _LATCHED, SWING_UP_TIMEOUT_S, "swing-up"
+        )
+        if state is not State.BALANCE:
+            raise _Stopped("no_catch", f"swing-up ended in {state.name} without a catch")
+        t_balance = cycle.t_s
+        result.swing_up_s = t_balance - t_swing
+        rig = service.rig
+        for disturbance in disturbances:
+            rig.schedule_impulse(rig.sim_time_s + disturbance.after_balance_s,
+                                 pendulum_ns=disturbance.impulse_ns)
+        left = cycle.wait_for_state(set(State) - {State.BALANCE})
+        end = cycle.wait_until(t_balance + duration_s)
+        await _first(left, end, duration_s, "balance")
+        result.balance_s = cycle.t_s - t_balance
+        if left.done():
+            state = left.result()
+            outcome = "fell" if state in (State.STOPPING, State.SWING_UP) else state.name.lower()
+            raise _Stopped(outcome, f"balance ended after {result.balance_s:.2f} s in {state.name}")
+        await _command(service, "stop")
+        await _wait_state(service, {State.IDLE} | _LATCHED, STOP_TIMEOUT_S, "stop")
+    except _Stopped as stopped:
+        result.outcome = stopped.outcome
+        result.detail = stopped.detail
+        await service.stop_motion("session")
+    if service.supervisor.machine.state is State.READY:
+        await _command(service, "disarm")
+    result.trips = [{"reason": name, "t_s": t_s} for name, t_s in service.trips[trips_before:]]
+    if result.trips and result.outcome == BALANCED:
+        result.outcome = "tripped"
+    result.samples = cycle.samples - samples_before
+    service.end_recording(result.outcome, {
+        "outcome": result.outcome, "detail": result.detail, "swing_up_s": result.swing_up_s,
+        "balance_s": result.balance_s, "samples": result.samples, "trips": result.trips,
+    })
+    return result
+
+
+async def _command(service: PoiseService, command: str) -> None:
+    try:
+        service.execute(command, {}, "session")
+    except CommandRefused as refused:
+        raise _Stopped("refused", f"{command} refused: {refused.reason}") from None
+
+
+async def _swing_up_when_still(service: PoiseService) -> None:
+    """Send swing_up once the pre-arm checks pass (the hold loop damps the swing homing left)."""
+    cycle = service.cycle
+    deadline = cycle.t_s + SETTLE_TIMEOUT_S
+    while True:
+        try:
+            service.execute("swing_up", {}, "session")
+            return
+        except CommandRefused as refused:
+            retryable = "pendulum.hanging_still" in refused.reason or "link.rate" in refused.reason
+            if cycle.t_s >= deadline or not retryable:
+                raise _Stopped("refused", f"swing_up refused: {refused.reason}") from None
+        await _first(cycle.wait_until(cycle.t_s + SETTLE_POLL_S), None, SETTLE_POLL_S, "settling")
+
+
+async def _wait_state(
+    service: PoiseService, states: set[State], device_timeout_s: float, what: str
+) -> State:
+    cycle = service.cycle
+    reached = cycle.wait_for_state(states)
+    deadline = cycle.wait_until(cycle.t_s + device_timeout_s)
+    await _first(reached, deadline, device_timeout_s, what)
+    if not reached.done():
+        raise _Stopped("timeout", f"{what} took longer than {device_timeout_s:g} s of rig time")
+    return reached.result()
+
+
+async def _first(
+    a: asyncio.Future, b: asyncio.Future | None, device_timeout_s: float, what: str
+) -> None:
+    """Wait for either future; give up if the rig's clock stops (no telemetry at all)."""
+    waiting = {a} if b is None else {a, b}
+    done, _ = await asyncio.wait(
+        waiting, timeout=WALL_TIMEOUT_FACTOR * device_timeout_s + 5.0,
+        return_when=asyncio.FIRST_COMPLETED,
+    )
+    if not done:
+        raise _Stopped("link_lost", f"{what}: the rig sent no telemetry")
+
+
+def summarise_run(db_path: str, result: SessionResult) -> dict:
+    """The session summary: the session's own figures plus those computed from the recorded run."""
+    conn = open_for_reading(db_path)
+    try:
+        run = get_run(conn, result.run_id, db_path)
+        theta_sq = x_sq = 0.0
+        balance_samples = 0
+        max_abs_x = 0.0
+        latencies: list[float] = []
+        balance_code = int(State.BALANCE)
+        for chunk in sample_chunks(conn, run):
+            for row in chunk:
+                latencies.append(row[_COL["latency_us"]])
+                if row[_COL["mode"]] == balance_code:
+                    theta, x = row[_COL["theta_rad"]], row[_COL["x_m"]]
+                    theta_sq += theta * theta
+                    x_sq += x * x
+                    max_abs_x = max(max_abs_x, abs(x))
+                    balance_samples += 1
+    finally:
+        conn.close()
+    latencies.sort()
+    rms = (lambda total: math.sqrt(total / balance_samples)) if balance_samples else (lambda _: None)
+    theta_rms = rms(theta_sq)
+    return {
+        "outcome": result.outcome,
+        "detail": result.detail,
+        "swing_up_s": result.swing_up_s,
+        "balance_s": result.balance_s,
+        "balance_rms_angle_deg": None if theta_rms is None else math.degrees(theta_rms),
+        "balance_rms_x_m": rms(x_sq),
+        "max_abs_x_m": max_abs_x,
+        "samples": result.samples,
+        "samples_recorded": run.samples_written,
+        "dropped_samples": run.samples_dropped,
+        "trips": result.trips,
+        "latency_us": {
+            "p50": percentile(latencies, 0.5) if latencies else None,
+            "p99": percentile(latencies, 0.99) if latencies else None,
+            "max": latencies[-1] if latencies else None,
+        },
+        "run_id": result.run_id,
+        "recording": db_path,
+    }

@@ -1,0 +1,84 @@
+"""The host watchdog: an asyncio task that stops the rig when telemetry stops or the cycle stalls.
+
+It ticks every half link timeout. Two things trip it while telemetry is
+expected:
+
+- ``link.timeout``: no telemetry for ``interlocks.link_timeout_samples`` sample
+  periods (:func:`daemon.supervisor.link_timeout_trip`). A rig in lockstep
+  (Telemetry status bit ST_LOCKSTEP) samples only when the host answers, so
+  there silence is judged against at least LOCKSTEP_SILENCE_S of wall-clock time.
+- ``loop.stall``: the watchdog itself ran later than the link timeout, which
+  means the event loop, and with it the control cycle, was blocked that long.
+
+The device's own watchdog is the backstop for a host that cannot run at all.
+Each tick also reports the measured telemetry rate and the device watchdog bit
+to the supervisor for the pre-arm checks.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import time
+from collections.abc import Callable
+from dataclasses import replace
+
+from daemon.runtime.cycle import ControlCycle
+from daemon.supervisor import Action, InterlockLimits, Supervisor, Trip, link_timeout_trip
+from protocol import ST_LOCKSTEP, ST_WATCHDOG_ACTIVE
+
+LOCKSTEP_SILENCE_S = 0.25
+RATE_WINDOW_S = 0.1
+
+
+async def run_watchdog(
+    cycle: ControlCycle,
+    supervisor: Supervisor,
+    expecting: Callable[[], bool],
+    on_trip: Callable[[Trip], None],
+    rate_known: asyncio.Event,
+) -> None:
+    """Run until cancelled. ``expecting()`` says whether telemetry should be flowing now;
+    ``rate_known`` is set once the first telemetry rate has been reported to the supervisor."""
+    limits = supervisor.limits
+    tick_s = max(0.001, limits.link_timeout_s / 2.0)
+    loop = asyncio.get_running_loop()
+    due = loop.time() + tick_s
+    rate_samples, rate_t_s, rate_wall_s = cycle.samples + cycle.missed, cycle.t_s, loop.time()
+    while True:
+        await asyncio.sleep(max(0.0, due - loop.time()))
+        now = loop.time()
+        late_s = now - due
+        due = now + tick_s
+        if not expecting() or not cycle.telemetry_flowing:
+            continue
+        tm = cycle.last_telemetry
+        lockstep = tm is not None and tm.status & ST_LOCKSTEP
+        if late_s > limits.link_timeout_s and not lockstep:
+            on_trip(
+                Trip(
+                    "loop.stall",
+                    Action.DRIVE_OFF,
+                    f"the host event loop was blocked for {late_s * 1000:.1f} ms "
+                    f"(link timeout {limits.link_timeout_s * 1000:.1f} ms)",
+                    {"blocked_s": late_s, "limit_s": limits.link_timeout_s},
+                )
+            )
+            continue
+        silent_limit = limits
+        if lockstep and limits.link_timeout_s < LOCKSTEP_SILENCE_S:
+            silent_limit = _with_timeout(limits, LOCKSTEP_SILENCE_S)
+        last_rx_s = cycle.last_rx_ns * 1e-9
+        trip = link_timeout_trip(time.monotonic(), last_rx_s, silent_limit)
+        if trip is not None:
+            on_trip(trip)
+            continue
+        if now - rate_wall_s >= RATE_WINDOW_S and cycle.t_s > rate_t_s:
+            count = cycle.samples + cycle.missed
+            rate_hz = (count - rate_samples) / (cycle.t_s - rate_t_s)
+            rate_samples, rate_t_s, rate_wall_s = count, cycle.t_s, now
+            supervisor.note_link(rate_hz, bool(tm is not None and tm.status & ST_WATCHDOG_ACTIVE))
+            rate_known.set()
+
+
+def _with_timeout(limits: InterlockLimits, timeout_s: float) -> InterlockLimits:
+    return replace(limits, link_timeout_s=timeout_s)
