@@ -120,7 +120,7 @@ def test_pumping_grows_the_swing_amplitude_every_half_swing(path):
             peak = 0.0
         peak = max(peak, abs(p))
         last_p = p
-        if pendulum_energy(cs.params, loop.plant.state) > 2 * mgl * 0.97:
+        if pendulum_energy(cs.params, loop.plant.state) > 2 * mgl * 0.9:  # trimming from here on
             break
     assert len(amplitudes) >= 4
     assert all(b > a for a, b in itertools.pairwise(amplitudes)), amplitudes

@@ -70,14 +70,22 @@ class SwingUpSettings(Section):
     pump_offset_m: float = Field(default=0.1, gt=0.0, le=5.0, description="set-points at ±this")
     pump_bandwidth_hz: float = Field(default=2.5, gt=0.0, le=100.0, description="inner position loop")
     track_use_fraction: float = Field(
-        default=0.7, gt=0.0, le=1.0, description="swing-up keeps the cart within this share of the soft limits"
+        default=0.5, gt=0.0, le=1.0, description="swing-up keeps the cart within this share of the soft limits"
     )
 
 
 class CatchSettings(Section):
-    angle_deg: float = Field(default=20.0, gt=0.0, le=60.0, description="switch to balance inside this")
-    rate_dps: float = Field(default=300.0, gt=0.0, le=5000.0)
-    fall_angle_deg: float = Field(default=35.0, gt=0.0, le=90.0, description="balance lost outside this")
+    """Window around upright where balance takes over, and the larger one where it has lost the pendulum.
+
+    Every corner of the window (angle and rate, either sign) must be a state the
+    saturated LQR recovers from without the cart reaching the soft limits; on a
+    short track the cart travel, not the drive, sets that edge. The defaults
+    suit Kestrel-1 (checked by tests/test_control_closed_loop.py).
+    """
+
+    angle_deg: float = Field(default=12.0, gt=0.0, le=60.0, description="switch to balance inside this")
+    rate_dps: float = Field(default=60.0, gt=0.0, le=5000.0)
+    fall_angle_deg: float = Field(default=30.0, gt=0.0, le=90.0, description="balance lost outside this")
     retries: int = Field(default=2, ge=0, le=20)
 
     @model_validator(mode="after")

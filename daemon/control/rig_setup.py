@@ -18,6 +18,9 @@ from sim_device.plant import PlantParams
 
 __all__ = ["ControlSet", "build_control_set", "soft_limit_m"]
 
+# Pumping stops once the energy would bring the pendulum within this share of the catch window.
+_PUMP_BAND_SHARE = 0.9
+
 
 def soft_limit_m(config: PoiseConfig) -> float:
     """Distance from the centre to the soft travel limits: inside the limit switches by the interlock inset."""
@@ -62,7 +65,12 @@ def build_control_set(
         swing: EnergySwingUp | PumpSwingUp = EnergySwingUp(params, config.swing_up, travel)
     elif law == "pump":
         mgl = params.pendulum_mass_kg * params.com_distance_m * params.gravity_mps2
-        band = mgl * (1.0 - math.cos(math.radians(config.catch.angle_deg) / 2))
+        # energies that bring the pendulum into the catch window: short of upright by less than a
+        # pendulum at rest at the window's edge, or over it by less than the window's rate
+        band = (
+            mgl * (1.0 - math.cos(_PUMP_BAND_SHARE * math.radians(config.catch.angle_deg))),
+            0.5 * params.pivot_inertia_kgm2 * (_PUMP_BAND_SHARE * math.radians(config.catch.rate_dps)) ** 2,
+        )
         swing = PumpSwingUp(params, config.swing_up, travel, dt, band)
     else:
         raise ValueError(f"swing_up.law: unknown law {law!r} (energy or pump)")

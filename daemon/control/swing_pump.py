@@ -28,12 +28,22 @@ twice the time between successive crossings of the hanging position, and the
 lead ``L`` the measured time from a switch until the cart passes the midpoint
 of its move (half the travel time), so the move is centred on the instant.
 
-Near the top the moves shrink so the energy lands on the upright energy: the
-travel of each move is the full ``2 offset`` scaled by ``deficit / gain``
-(at most 1), where ``gain`` is the energy the last full-length move added. Once
-the energy is within ``energy_band`` of upright, switching stops and the
-pendulum coasts into the catch window; above it, the same moves run reversed
-and take energy out.
+Near the top the moves shrink so the energy lands on the upright energy. A
+rest-to-rest move of length ``d`` centred where ``c = w cos th`` changes sign
+adds ``dE ~ m l |dc/dt| d`` (integrate ``m l a c`` by parts with ``c`` linear
+in time), and for the free pendulum ``dc/dt = (m g l / J) sin th cos th - w^2
+sin th``. So each move spans ``d = deficit / (m l |dc/dt|)``, at most the full
+``2 offset`` and at least ``0.01 offset``, between set-points ``±d/2``.
+
+The last few per cent of energy are finer than moves can dose, so once the
+energy is within ``trim_share`` of the upright energy (and the pendulum is
+above horizontal), the cart acceleration comes from the energy law of
+:mod:`.swing_energy` instead of the position loop; its cart feedback keeps the
+cart near where it is, and the small energy error keeps the accelerations small.
+Once
+the energy is inside ``energy_band = (below, above)`` around the upright
+energy, switching stops and the pendulum coasts into the catch window; above
+it, the same moves run reversed and take energy out.
 """
 
 from __future__ import annotations
@@ -43,6 +53,7 @@ import math
 from daemon.config.control import SwingUpSettings
 from daemon.control.drive_model import AccelerationDrive, clamp
 from daemon.control.encoders import wrap_angle
+from daemon.control.swing_energy import EnergySwingUp
 from daemon.control.track_guard import TrackGuard
 from sim_device.plant import PlantParams
 
@@ -54,6 +65,10 @@ _HALF_RISE_WC = 1.678
 # A crossing of the hanging position counts only after the swing has gone this far out.
 _CROSSING_HYSTERESIS_RAD = math.radians(2.0)
 _HALF_PI = 0.5 * math.pi
+# Energy errors below this share of 2 m g l are trimmed by the energy law, not by moves.
+_TRIM_SHARE = 0.1
+# Energy-law gain while trimming: at most 0.2 g of cart acceleration at the trim band's edge.
+_TRIM_ENERGY_GAIN = 2.0
 
 
 class PumpSwingUp:
@@ -63,16 +78,17 @@ class PumpSwingUp:
         "_2wc",
         "_a_max",
         "_armed",
+        "_band_above",
+        "_band_below",
         "_drive",
         "_dt",
-        "_energy_band",
-        "_gain_per_m",
         "_guard",
         "_half_jp",
+        "_jp",
         "_last_crossing_t",
         "_last_p",
         "_mgl",
-        "_move_energy",
+        "_ml",
         "_moved_this_half",
         "_offset",
         "_peak",
@@ -81,6 +97,8 @@ class PumpSwingUp:
         "_switch_x",
         "_t",
         "_travel_pending",
+        "_trim",
+        "_trim_j",
         "_wc2",
         "amplitude_rad",
         "half_period_s",
@@ -90,7 +108,7 @@ class PumpSwingUp:
     )
 
     def __init__(self, params: PlantParams, settings: SwingUpSettings, travel_limit_m: float,
-                 dt_s: float, energy_band_j: float):
+                 dt_s: float, energy_band_j: tuple[float, float]):
         if settings.pump_offset_m >= travel_limit_m:
             raise ValueError(
                 f"swing_up.pump_offset_m: {settings.pump_offset_m} m is not inside the swing-up "
@@ -105,8 +123,13 @@ class PumpSwingUp:
         self._offset = settings.pump_offset_m
         self._dt = dt_s
         self._half_jp = 0.5 * params.pivot_inertia_kgm2
-        self._mgl = params.pendulum_mass_kg * params.com_distance_m * params.gravity_mps2
-        self._energy_band = energy_band_j
+        self._ml = params.pendulum_mass_kg * params.com_distance_m
+        self._jp = params.pivot_inertia_kgm2
+        self._mgl = self._ml * params.gravity_mps2
+        self._band_below, self._band_above = energy_band_j
+        trim_settings = settings.model_copy(update={"energy_gain": _TRIM_ENERGY_GAIN})
+        self._trim = EnergySwingUp(params, trim_settings, travel_limit_m)
+        self._trim_j = _TRIM_SHARE * 2.0 * params.pendulum_mass_kg * params.com_distance_m * params.gravity_mps2
         self.lead_s = _HALF_RISE_WC / wc
         self.half_period_s = math.pi * math.sqrt(params.pivot_inertia_kgm2 / self._mgl)
         self.last_drive = 0.0
@@ -125,8 +148,6 @@ class PumpSwingUp:
         self._moved_this_half = False
         self.amplitude_rad = abs(self._last_p)
         self._peak = 0.0
-        self._move_energy = None
-        self._gain_per_m = 0.0
         self.last_drive = last_drive
         self.switches = 0
 
@@ -166,31 +187,44 @@ class PumpSwingUp:
                 self.lead_s = self._t - self._switch_t
             self._travel_pending = False
 
-    def _switch(self, x: float, direction: float, energy_error: float) -> None:
+    def _switch(self, direction: float, energy: float) -> None:
+        """Move toward ``direction``; the travel sized for the energy still missing (module docstring)."""
         distance = 2.0 * self._offset
-        if self._gain_per_m > 0.0:
-            distance = min(distance, abs(energy_error) / self._gain_per_m)
-        self._set_point = clamp(x + direction * distance, self._offset)
-        if self._move_energy is not None:
-            moved = abs(self._switch_x - x)
-            gained = abs(self._move_energy[1] - self._move_energy[0])
-            if moved > self._offset:
-                self._gain_per_m = gained / moved
+        rate = self._sign_change_rate(energy)
+        if rate > 0.0:
+            distance = min(distance, max(abs(energy) / (self._ml * rate), 0.01 * self._offset))
+        self._switch_x = self._set_point
+        self._set_point = direction * 0.5 * distance
         self._switch_t = self._t
-        self._switch_x = x
         self._travel_pending = True
         self._moved_this_half = True
         self.switches += 1
 
-    def _due(self, p: float, omega: float) -> bool:
+    def _sign_change_rate(self, energy: float) -> float:
+        """``|d(w cos th)/dt|`` of the free pendulum with this energy where ``w cos th`` changes sign.
+
+        Past horizontal that is the horizontal crossing (``w^2`` there); otherwise
+        the turning point at angle ``A`` (``(m g l / J) |sin A cos A|``).
+        """
+        if energy + self._mgl > 0.0:
+            return 2.0 * (energy + self._mgl) / self._jp
+        cos_a = 1.0 + energy / self._mgl
+        return self._mgl / self._jp * abs(cos_a) * math.sqrt(max(0.0, 1.0 - cos_a * cos_a))
+
+    def _due(self, p: float, omega: float, energy: float) -> bool:
+        """Whether this half swing's move should start now (see the module docstring)."""
         if self._moved_this_half:
             return False
         if (omega >= 0.0) != (p >= 0.0):
-            return self._peak > _CROSSING_HYSTERESIS_RAD  # turned back before the threshold
+            return False  # swinging back in: too late for this half swing
         lead = self.lead_s
-        turning = self.amplitude_rad * math.cos(math.pi * lead / self.half_period_s)
-        horizontal = _HALF_PI - abs(omega) * lead
-        return abs(p) >= min(turning, horizontal)
+        reach = energy + self._mgl
+        if reach > 0.0:  # passes horizontal: time to get there at the mean of now and then speeds
+            if abs(p) >= _HALF_PI:
+                return True
+            speed = 0.5 * (abs(omega) + math.sqrt(2.0 * reach / self._jp))
+            return (_HALF_PI - abs(p)) <= speed * lead
+        return abs(p) >= self.amplitude_rad * math.cos(math.pi * lead / self.half_period_s)
 
     def update(self, x: float, v: float, theta: float, omega: float) -> float:
         self._t += self._dt
@@ -199,17 +233,13 @@ class PumpSwingUp:
         self._track_swing(p)
         self._track_move(x, energy)
         error = -energy
-        if abs(error) > self._energy_band and self._due(p, omega):
+        if not -self._band_below < energy < self._band_above and self._due(p, omega, energy):
             outward = 1.0 if p >= 0.0 else -1.0
-            direction = -outward if error > 0.0 else outward
-            if self._move_energy is not None:
-                self._move_energy = (self._move_energy[0], energy)
-            self._switch(x, direction, error)
-            self._move_energy = (energy, energy)
-        elif self._move_energy is not None:
-            self._move_energy = (self._move_energy[0], energy)
-        a = self._wc2 * (self._set_point - x) - self._2wc * v
-        a = self._guard.limit(clamp(a, self._a_max), x, v)
+            self._switch(-outward if error > 0.0 else outward, energy)
+        if -energy < self._trim_j and math.cos(theta) > 0.0:
+            a = self._trim.accel_command(x, v, theta, omega)
+        else:
+            a = self._guard.limit(clamp(self._wc2 * (self._set_point - x) - self._2wc * v, self._a_max), x, v)
         drive = self._drive.command_for(a, v, math.sin(theta), math.cos(theta), omega)
         self.last_drive = drive
         return drive
