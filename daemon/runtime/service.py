@@ -95,7 +95,7 @@ class PoiseService:
         self.run_id: int | None = None
         self.handshaking = False
         self.closing = False
-        self.trips: list[tuple[str, float]] = []
+        self.trips: list[tuple[str, float, int]] = []  # name, device time, telemetry seq
         self.supervisor = Supervisor(config, clock=self._device_time_s, on_entry=self._on_log_entry)
         controls = build_control_set(config)
         self.cycle = ControlCycle(
@@ -411,7 +411,8 @@ class PoiseService:
 
     def _record_trip(self, trip: Trip, t_s: float) -> None:
         """Store a trip with the last link frames each way (the latch itself is the supervisor's)."""
-        self.trips.append((trip.name, t_s))
+        tm = self.cycle.last_telemetry
+        self.trips.append((trip.name, t_s, tm.seq if tm is not None else -1))
         log.warning("interlock %s tripped: %s", trip.name, trip.reason)
         if self.recorder is None:
             return

@@ -126,7 +126,7 @@ async def run_session(
         await service.stop_motion("session")
     if service.supervisor.machine.state is State.READY:
         await _command(service, "disarm")
-    result.trips = [{"reason": name, "t_s": t_s} for name, t_s in service.trips[trips_before:]]
+    result.trips = [{"reason": name, "t_s": t_s} for name, t_s, _seq in service.trips[trips_before:]]
     if result.trips and result.outcome == BALANCED:
         result.outcome = "tripped"
     result.samples = cycle.samples - samples_before

@@ -1,0 +1,193 @@
+"""Each interlock tripped on the simulated rig over a real pty, by fault injection or a hostile command.
+
+For every trip: the right reason is latched, the command frames the device
+received after it carry no drive (or, for a controlled stop, the ramp runs and
+then the drive is off), the trip is stored in the run store with the last link
+frames each way, and an operator reset leaves the rig idle and disarmed.
+"""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+from test_daemon_support import device_received, homed_and_ready, run_for, running_service, wait_for
+
+from daemon.errors import CommandRefused
+from daemon.recording.store import open_for_reading, run_events
+from daemon.supervisor import Output, State
+from protocol import Drive, Stop
+from sim_device.faults import DriverFault, FaultPlan, Stall, StuckSwitch
+
+
+def latched(service) -> list[str]:
+    """Names of the latched faults; a lost link adds its own ``link_down`` after the trip."""
+    names = [fault["reason"].split(":")[0] for fault in service.supervisor.status()["faults"]]
+    return [name for name in names if name != "link_down"]
+
+
+def drives_after_trip(service, name: str) -> list[float]:
+    """Drive values the device received answering the trip's sample and every later one."""
+    trip_seq = next(seq for trip, _t, seq in service.trips if trip == name)
+    return [m.drive for m in device_received(service) if type(m) is Drive and m.answers_seq >= trip_seq]
+
+
+async def stored_trips(service) -> list[dict]:
+    service.recorder.flush()
+    conn = open_for_reading(service.recorder.db_path)
+    try:
+        events = run_events(conn, service.run_id)
+    finally:
+        conn.close()
+    return [json.loads(data) for _t, kind, _s, data in events if kind == "interlock.trip"]
+
+
+async def reset_to_idle(service) -> None:
+    service.execute("reset", {}, "api")
+    await run_for(service, 0.1)
+    machine = service.supervisor.machine
+    assert machine.state is State.IDLE
+    assert machine.output is Output.OFF
+    assert not service.cycle.device_armed
+    assert service.rig.device.armed is False
+
+
+async def check_drive_off_trip(service, name: str) -> None:
+    await run_for(service, 0.05)
+    assert latched(service) == [name]
+    assert service.supervisor.machine.state is State.FAULT
+    drives = drives_after_trip(service, name)
+    assert drives and all(drive == 0.0 for drive in drives)
+    assert any(type(m) is Stop for m in device_received(service))
+    trips = await stored_trips(service)
+    assert trips[0]["name"] == name  # a fault that persists may be recorded again, same name
+    assert {trip["name"] for trip in trips} == {name}
+    assert trips[0]["rx_frames"] and trips[0]["tx_frames"]
+
+
+async def test_stuck_limit_switch_trips_the_limit_switch_interlock_with_the_drive_off(tmp_path):
+    async with running_service(tmp_path) as service:
+        service.start_recording("test")
+        await homed_and_ready(service)
+        service.rig.schedule_fault(service.rig.sim_time_s, StuckSwitch("pos"))
+        await wait_for(service, State.FAULT)
+        await check_drive_off_trip(service, "track.limit_switch")
+
+
+async def test_driver_fault_flag_trips_with_the_drive_off_and_reset_leaves_the_rig_idle(tmp_path):
+    async with running_service(tmp_path) as service:
+        service.start_recording("test")
+        await homed_and_ready(service)
+        service.rig.schedule_fault(service.rig.sim_time_s, DriverFault())
+        await wait_for(service, State.FAULT)
+        await check_drive_off_trip(service, "device.driver")
+        await reset_to_idle(service)
+        await run_for(service, 0.2)  # the device's cleared flag stays cleared: no new trip
+        assert service.supervisor.machine.state is State.IDLE
+
+
+async def test_device_reset_trips_device_reset_and_the_link_comes_back(tmp_path):
+    async with running_service(tmp_path) as service:
+        service.start_recording("test")
+        await homed_and_ready(service)
+        service.rig.reset()
+        await wait_for(service, State.FAULT)
+        assert latched(service) == ["device.reset"]
+        assert not service.supervisor.machine.homed
+        await run_for(service, 0.2)  # telemetry resumes after the link configures the device again
+        trips = await stored_trips(service)
+        assert [trip["name"] for trip in trips] == ["device.reset"]
+        await reset_to_idle(service)
+
+
+async def test_stalled_device_trips_link_timeout_and_the_device_gets_a_stop(tmp_path):
+    async with running_service(tmp_path) as service:
+        service.start_recording("test")
+        await homed_and_ready(service)
+        service.rig.schedule_fault(service.rig.sim_time_s, Stall(duration_ms=1500))
+        await wait_for(service, State.FAULT)
+        assert latched(service) == ["link.timeout"]
+        await wait_for(service, State.IDLE, State.FAULT)
+        await run_for(service, 0.1)  # telemetry is back after the stall
+        assert any(type(m) is Stop for m in device_received(service))
+        assert [trip["name"] for trip in await stored_trips(service)] == ["link.timeout"]
+        await reset_to_idle(service)
+
+
+async def test_cut_link_trips_link_lost(tmp_path):
+    async with running_service(tmp_path) as service:
+        service.start_recording("test")
+        await homed_and_ready(service)
+        service.rig.transport.close()  # the cable is pulled: the pty goes away
+        await wait_for(service, State.FAULT)
+        assert latched(service) == ["link.lost"]
+        assert [trip["name"] for trip in await stored_trips(service)] == ["link.lost"]
+        service.execute("reset", {}, "api")
+        assert service.supervisor.machine.state is State.DISCONNECTED
+
+
+async def test_corrupted_frames_above_the_allowed_rate_trip_link_crc(tmp_path):
+    # The line garbles nothing until the rig is holding; then every second frame. In real time
+    # (a lockstep rig would wait for the answer to a lost frame); a generous link timeout keeps a
+    # busy test machine from tripping that first, and so do a generous loop budget and device
+    # watchdog (the simulated rig shares the test's event loop).
+    async with running_service(
+        tmp_path, faults=FaultPlan(corrupt_rate=1e-12), lockstep=False,
+        edits={"device_watchdog_ms": "1000"},
+        extra="[interlocks]\nlink_timeout_samples = 100\noverrun_budget_us = 50000.0\n",
+    ) as service:
+        service.start_recording("test")
+        await homed_and_ready(service)
+        service.rig.transport.corrupt_rate = 0.5
+        await wait_for(service, State.FAULT)
+        service.rig.transport.corrupt_rate = 0.0
+        await check_drive_off_trip(service, "link.crc")
+
+
+async def test_overspeed_from_a_shove_on_the_cart_starts_a_controlled_stop(tmp_path):
+    async with running_service(tmp_path) as service:
+        service.start_recording("test")
+        await homed_and_ready(service)
+        service.rig.apply_impulse_now(cart_ns=1.6)  # 0.87 kg moving part: about 1.8 m/s > 1.5 m/s
+        await wait_for(service, State.FAULT)
+        assert latched(service) == ["cart.overspeed"]
+        assert service.supervisor.machine.output is Output.RAMP
+        await run_for(service, 2.0)
+        assert service.supervisor.machine.output is Output.OFF
+        assert service.cycle.last_drive == 0.0
+        assert abs(service.rig.state[1]) < 0.05
+        await reset_to_idle(service)
+
+
+async def test_hostile_set_point_near_the_end_plus_a_shove_trips_the_stopping_distance(tmp_path):
+    # The stop ramp decelerates as hard as the predictive check assumes the rig can brake.
+    async with running_service(tmp_path, extra="[stop]\ndecel_mps2 = 8.0\n") as service:
+        service.start_recording("test")
+        await homed_and_ready(service)
+        service.execute("setpoint", {"x_m": 0.3}, "api")
+        await run_for(service, 4.0)
+        assert service.supervisor.machine.state is State.READY
+        service.rig.apply_impulse_now(cart_ns=0.9)  # ~1 m/s toward the end 6 cm away
+        await wait_for(service, State.FAULT)
+        assert latched(service)[0] in ("track.stopping_distance", "track.soft_limit")
+        await run_for(service, 2.0)
+        assert service.supervisor.machine.output is Output.OFF
+        assert abs(service.rig.state[0]) < 0.45 - 0.03  # never reached the limit switch
+
+
+async def test_rig_button_latches_estop_reset_refused_until_released(tmp_path):
+    async with running_service(tmp_path) as service:
+        service.start_recording("test")
+        await homed_and_ready(service)
+        service.rig.press_estop()
+        await wait_for(service, State.ESTOP)
+        assert latched(service) == ["estop.button"]
+        assert service.rig.device.armed is False
+        await run_for(service, 0.1)
+        with pytest.raises(CommandRefused, match="button is still pressed"):
+            service.execute("reset", {}, "api")
+        service.rig.release_estop()
+        await run_for(service, 0.05)
+        await reset_to_idle(service)
+        await run_for(service, 0.2)
+        assert service.supervisor.machine.state is State.IDLE

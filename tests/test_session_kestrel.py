@@ -1,0 +1,66 @@
+"""Whole sessions on the demo rig (Kestrel-1) over a real pty, the simulated rig in lockstep."""
+
+from __future__ import annotations
+
+import json
+import math
+
+from test_daemon_support import KESTREL, write_rig_config
+
+from daemon.cli import main
+from daemon.recording.store import get_run, open_for_reading, run_events
+
+
+def run_cli(capsys, *argv: str) -> tuple[int, dict]:
+    status = main(list(argv))
+    return status, json.loads(capsys.readouterr().out)
+
+
+def test_demo_rig_session_balances_with_every_sample_recorded(tmp_path, capsys):
+    config = write_rig_config(tmp_path, KESTREL)
+    status, summary = run_cli(
+        capsys, "session", "--config", str(config), "--sim", "--duration", "8",
+        "--disturb", "3:0.02", "--json",
+    )
+    assert status == 0, summary
+    assert summary["outcome"] == "balanced"
+    assert summary["trips"] == []
+    assert summary["balance_s"] >= 8.0
+    assert summary["samples"] > 0
+    assert summary["samples_recorded"] == summary["samples"]
+    assert summary["dropped_samples"] == 0
+    # The catch window is 20 deg and the fall window 35 deg: a balance that stayed up is far inside.
+    assert summary["balance_rms_angle_deg"] < 5.0
+    assert summary["max_abs_x_m"] < 0.36  # inside the soft limits (0.45 - 0.03 - 0.06 m)
+    assert 0.0 < summary["swing_up_s"] < 60.0
+    latency = summary["latency_us"]
+    assert 0.0 < latency["p50"] <= latency["p99"] <= latency["max"]
+    conn = open_for_reading(summary["recording"])
+    try:
+        run = get_run(conn, summary["run_id"], summary["recording"])
+        kinds = [kind for _, kind, _, _ in run_events(conn, summary["run_id"])]
+    finally:
+        conn.close()
+    assert run.outcome == "balanced"
+    assert "supervisor.transition" in kinds
+    assert run.samples_written == summary["samples"]
+
+
+def test_session_json_is_strict_json_with_the_documented_fields(tmp_path, capsys):
+    config = write_rig_config(tmp_path, KESTREL)
+    _status, summary = run_cli(
+        capsys, "session", "--config", str(config), "--sim", "--duration", "1", "--json"
+    )
+    for key in ("outcome", "swing_up_s", "balance_s", "balance_rms_angle_deg", "balance_rms_x_m",
+                "max_abs_x_m", "samples", "samples_recorded", "dropped_samples", "trips",
+                "latency_us", "run_id", "recording"):
+        assert key in summary
+    assert set(summary["latency_us"]) == {"p50", "p99", "max"}
+    assert all(math.isfinite(v) for v in summary["latency_us"].values())
+
+
+def test_a_bad_disturbance_is_one_line_naming_the_option(tmp_path, capsys):
+    config = write_rig_config(tmp_path, KESTREL)
+    assert main(["session", "--config", str(config), "--sim", "--disturb", "soon:lots"]) == 2
+    err = capsys.readouterr().err.strip()
+    assert err.count("\n") == 0 and "--disturb 'soon:lots'" in err
