@@ -97,7 +97,7 @@ async def run_session(
         if not service.supervisor.machine.homed:
             raise _Stopped("homing_failed", "homing did not finish")
         await _command(service, "arm")
-        await _swing_up_when_still(service)
+        await swing_up_when_still(service)
         t_swing = cycle.t_s
         state = await _wait_state(
             service, {State.BALANCE, State.IDLE} | _LATCHED, SWING_UP_TIMEOUT_S, "swing-up"
@@ -144,7 +144,7 @@ async def _command(service: PoiseService, command: str) -> None:
         raise _Stopped("refused", f"{command} refused: {refused.reason}") from None
 
 
-async def _swing_up_when_still(service: PoiseService) -> None:
+async def swing_up_when_still(service: PoiseService) -> None:
     """Send swing_up once the pre-arm checks pass (the hold loop damps the swing homing left)."""
     cycle = service.cycle
     deadline = cycle.t_s + SETTLE_TIMEOUT_S
