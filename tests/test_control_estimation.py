@@ -184,3 +184,17 @@ def test_noise_and_lag_figures():
     assert f15[3] > f40[3] > raw[3]
     assert kal[0] < f40[0] and kal[2] < f40[2]
     assert kal[1] <= f40[1] and kal[3] <= f40[3]
+
+
+def test_homing_offset_moves_the_origin_without_a_velocity_spike():
+    config = load_config(KESTREL)
+    cs = build_control_set(config)
+    estimator = cs.estimator
+    estimator.reset(1000, 0)
+    for k in range(1, 200):
+        state = estimator.update(1000 + 20 * k, 0, 0.0)  # steady motion, 20 counts per sample
+    speed = state[1]
+    estimator.scaling.set_centre_at(estimator.scaling.raw_x_m())
+    x, v, _th, _w = estimator.update(1000 + 20 * 200, 0, 0.0)
+    assert x == pytest.approx(20 / config.encoders.cart_counts_per_m, abs=1e-12)
+    assert v == pytest.approx(speed, rel=1e-6)

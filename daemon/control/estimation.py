@@ -53,6 +53,7 @@ class StateEstimator:
         "_cart_rate",
         "_kalman",
         "_kalman_active",
+        "_offset_counts",
         "_pendulum_rate",
         "_region_rad",
         "scaling",
@@ -74,6 +75,7 @@ class StateEstimator:
         self._region_rad = kalman_region_rad
         self._kalman_active = False
         self.theta_unwrapped_rad = math.pi
+        self._offset_counts = scaling.cart_offset_counts
 
     def reset(self, cart_reading: int, pendulum_reading: int,
               v_mps: float = 0.0, omega_radps: float = 0.0) -> State:
@@ -86,7 +88,13 @@ class StateEstimator:
         return x_m, v_mps, wrap_angle(theta), omega_radps
 
     def update(self, cart_reading: int, pendulum_reading: int, applied_drive: float) -> State:
-        x_m, theta = self.scaling.update(cart_reading, pendulum_reading)
+        scaling = self.scaling
+        if scaling.cart_offset_counts != self._offset_counts:  # homed: new origin, same motion
+            shift = (self._offset_counts - scaling.cart_offset_counts) * scaling.cart_quantum_m
+            self._cart_rate.shift(shift)
+            self._offset_counts = scaling.cart_offset_counts
+            self._kalman_active = False
+        x_m, theta = scaling.update(cart_reading, pendulum_reading)
         self.theta_unwrapped_rad = theta
         v = self._cart_rate.update(x_m)
         w = self._pendulum_rate.update(theta)

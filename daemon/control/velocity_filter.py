@@ -31,6 +31,10 @@ class FilteredDifference:
         self._last = position
         self._rate = rate
 
+    def shift(self, offset: float) -> None:
+        """Move the origin of the measured coordinate by ``offset`` without disturbing the rate."""
+        self._last += offset
+
     def update(self, position: float) -> float:
         raw = (position - self._last) * self._inv_dt
         self._last = position
