@@ -18,32 +18,38 @@ goes against the swing direction. With ``p = th - pi`` (wrapped, 0 hanging):
   half swing.
 
 Each half swing (between crossings of the hanging position) therefore gets one
-move, to ``x_sp = -offset * sign(w)``, triggered while the pendulum moves
-outward (``sign w = sign p``) once ``|p|`` passes the threshold::
+move, against the swing direction (``-sign w`` while pumping in), started
+while the pendulum moves outward (``sign w = sign p``) once::
 
-    |p| >= min( A cos(2 pi L / T),  pi/2 - |w| L )      or w has changed sign already
+    below horizontal (E < -m g l):  |p| >= A cos(pi L / T_half)
+    past horizontal:                 pi/2 - |p| <= L (|w| + w_h) / 2
 
-``A`` is the amplitude of the last swing, ``T`` the period measured online as
-twice the time between successive crossings of the hanging position, and the
-lead ``L`` the measured time from a switch until the cart passes the midpoint
-of its move (half the travel time), so the move is centred on the instant.
+``A`` is the amplitude of the last swing, ``T_half`` the half period measured
+online as the time between successive crossings of the hanging position,
+``w_h`` the speed the energy gives at horizontal, and the lead ``L`` the
+measured time from a switch until the cart passes the midpoint of its move
+(half the travel time), so that the move is centred on the instant. A swing
+that turns back before its threshold gets no move.
 
-Near the top the moves shrink so the energy lands on the upright energy. A
-rest-to-rest move of length ``d`` centred where ``c = w cos th`` changes sign
-adds ``dE ~ m l |dc/dt| d`` (integrate ``m l a c`` by parts with ``c`` linear
-in time), and for the free pendulum ``dc/dt = (m g l / J) sin th cos th - w^2
-sin th``. So each move spans ``d = deficit / (m l |dc/dt|)``, at most the full
-``2 offset`` and at least ``0.01 offset``, between set-points ``±d/2``.
+The moves shrink as the energy nears the upright energy. A rest-to-rest move
+of length ``d`` centred where ``c = w cos th`` changes sign adds ``dE ~ m l
+|dc/dt| d`` (integrate ``m l a c`` by parts with ``c`` linear in time); for
+the free pendulum ``|dc/dt|`` is ``w_h^2`` at the horizontal and ``(m g l /
+J) |sin A cos A|`` at a turning point ``A``. So each move spans ``d = deficit /
+(m l |dc/dt|)``, at most the full ``2 offset`` and at least ``0.01 offset``,
+between set-points ``±d/2``.
 
-The last few per cent of energy are finer than moves can dose, so once the
-energy is within ``trim_share`` of the upright energy (and the pendulum is
-above horizontal), the cart acceleration comes from the energy law of
-:mod:`.swing_energy` instead of the position loop; its cart feedback keeps the
-cart near where it is, and the small energy error keeps the accelerations small.
-Once
-the energy is inside ``energy_band = (below, above)`` around the upright
-energy, switching stops and the pendulum coasts into the catch window; above
-it, the same moves run reversed and take energy out.
+The last few per cent are finer than moves can dose: once the energy error is
+below ``_TRIM_SHARE`` of ``2 m g l`` and the pendulum is above horizontal, the
+cart acceleration comes from the energy law of :mod:`.swing_energy` with a low
+gain instead of from the position loop. Inside ``energy_band = (below,
+above)`` of the upright energy no new move starts, and the pendulum coasts
+into the catch window; above it, moves run the other way and take energy out.
+
+Measured on the plant model with encoder noise (8 seeds each): from hanging at
+rest to the catch in 6.6-17.9 s on Kestrel-1 and 5.8-13.1 s on Wren-2, but 2
+of the 8 Wren-2 runs did not reach the catch window within 30 s (the final
+energy trim is the weak spot).
 """
 
 from __future__ import annotations
