@@ -1,0 +1,408 @@
+"""The simulated rig's firmware: a device loop that speaks exactly the wire protocol.
+
+Behaviour, as a firmware author would implement it (protocol/PROTOCOL.md):
+
+- At power-up and after a reset the device sends a DeviceHello, sets F_RESET
+  and waits, disarmed, for a Configure. Identify is answered with a DeviceHello.
+- Configure (answered with a Reply) starts sampling at the requested rate,
+  telemetry at seq 0. Every sample sends one Telemetry frame.
+- A Drive received after sample ``k`` takes effect at sample ``k + 1`` (one
+  sample of delay, as on real hardware) and is held until the next Drive.
+  A Drive answering an older sample than the latest is counted as late and
+  still applied (latest wins). Drives are clamped to ``±drive_limit``; a
+  non-finite drive is ignored.
+- Disarmed, the applied drive is zero. Stop, disarm, a driver fault and the
+  e-stop button cut the drive at once, not at the next sample.
+- The watchdog: if no valid Drive or Heartbeat arrives within ``watchdog_ms``
+  of device time, the drive is cut, the device disarms and F_WATCHDOG is
+  latched. Latched faults refuse Arm until ClearFaults (which clears only
+  faults whose cause is gone: F_ESTOP stays while the button is pressed).
+- A FaultReport is sent whenever a fault flag becomes latched.
+
+Frames the device sends other than Telemetry carry their own sequence number,
+counting from 0 at power-up and after a reset.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import math
+from dataclasses import dataclass
+
+from protocol import FrameDecoder, encode, seal_frame
+from protocol.layout import LAYOUTS_BY_CLASS
+from protocol.messages import (
+    CAP_ESTOP_BUTTON,
+    CAP_LIMIT_SWITCHES,
+    CAP_SIMULATED,
+    DRIVE_KIND_NEWTONS,
+    DRIVE_KIND_VOLTS,
+    F_DRIVER,
+    F_ESTOP,
+    F_RESET,
+    F_WATCHDOG,
+    PROTOCOL_VERSION,
+    SCHEMA_FINGERPRINT,
+    ST_ARMED,
+    ST_LOCKSTEP,
+    ST_WATCHDOG_ACTIVE,
+    SW_END_STOP,
+    SW_ESTOP_BUTTON,
+    SW_LIMIT_NEG,
+    SW_LIMIT_POS,
+    Arm,
+    ClearFaults,
+    Configure,
+    DeviceHello,
+    Drive,
+    FaultReport,
+    Heartbeat,
+    Identify,
+    Message,
+    Reply,
+    ReplyResult,
+    Stop,
+    Telemetry,
+)
+from sim_device.clocks import SampleClock
+from sim_device.faults import (
+    DriverFault,
+    EncoderGlitch,
+    FaultEvent,
+    FaultSchedule,
+    Impulse,
+    Reset,
+    Stall,
+    StuckSwitch,
+)
+from sim_device.plant import Plant, applied_command
+from sim_device.sensors import Sensors, wrap_i32
+from sim_device.transports import Transport
+
+__all__ = ["FIRMWARE_VERSION", "SAMPLE_RATE_RANGE_HZ", "DeviceIdentity", "SimulatedDevice"]
+
+FIRMWARE_VERSION = (1, 0, 0)
+SAMPLE_RATE_RANGE_HZ = (1, 10000)
+NAN = math.nan
+# Telemetry goes out every sample: pack it with the protocol's own precompiled
+# header+payload struct instead of building a message object first.
+_TELEMETRY_BODY = LAYOUTS_BY_CLASS[Telemetry].body
+_TELEMETRY_HEADER = (PROTOCOL_VERSION, 0, Telemetry.TYPE_ID)
+_SWITCH_BITS = {"neg": SW_LIMIT_NEG, "pos": SW_LIMIT_POS}
+
+
+@dataclass(frozen=True)
+class DeviceIdentity:
+    """What the device says about itself in its DeviceHello, and its power-up settings."""
+
+    device_id: str
+    sample_rate_hz: int
+    watchdog_ms: int
+    has_estop_button: bool = True
+
+    def __post_init__(self) -> None:
+        if not 1 <= len(self.device_id) <= 16 or not self.device_id.isascii():
+            raise ValueError(f"device_id must be 1-16 ASCII characters (got {self.device_id!r})")
+        low, high = SAMPLE_RATE_RANGE_HZ
+        if not low <= self.sample_rate_hz <= high:
+            raise ValueError(f"sample_rate_hz must be {low}..{high} (got {self.sample_rate_hz})")
+
+
+class SimulatedDevice:
+    """The device state machine, driven by received bytes and by its sample clock.
+
+    ``sim_time_us`` counts simulated time since the simulator started and is
+    never reset; fault events are scheduled on it. The device's own time
+    (Telemetry.t_us) restarts at a device reset.
+    """
+
+    def __init__(
+        self,
+        identity: DeviceIdentity,
+        plant: Plant,
+        sensors: Sensors,
+        transport: Transport,
+        clock: SampleClock,
+        schedule: FaultSchedule,
+    ):
+        self.identity = identity
+        self.plant = plant
+        self.sensors = sensors
+        self.transport = transport
+        self.clock = clock
+        self.schedule = schedule
+        drive = plant.params.drive
+        self._drive_params = drive
+        self._hello_fields = self._hello_payload()
+        self._loop: asyncio.AbstractEventLoop | None = None
+        self.sim_time_us = 0
+        self.estop_pressed = False
+        self.stuck_switches = 0
+        self.cart_glitch_counts = 0
+        self.pendulum_glitch_counts = 0
+        self.resets = 0
+        self._power_up()
+
+    # -- life cycle ----------------------------------------------------------------
+
+    def _power_up(self) -> None:
+        """The state after power-up or a reset (the plant and the encoders carry on)."""
+        self.decoder = FrameDecoder()
+        self.configured = False
+        self.armed = False
+        self.faults = F_RESET | (F_ESTOP if self.estop_pressed else 0)
+        self.sample_rate_hz = self.identity.sample_rate_hz
+        self.watchdog_ms = self.identity.watchdog_ms
+        self.drive_output = 0.0
+        self._pending_drive: float | None = None
+        self.late_commands = 0
+        self.t_us = 0
+        self._sample_seq = -1
+        self._tx_seqs: dict[type[Message], int] = {}
+        self._period_us = 0
+        self._nominal_next_us = 0
+        self._last_feed_us = 0
+        self._stall_until_us = -1
+        self._first_sample = False
+
+    def start(self, loop: asyncio.AbstractEventLoop) -> None:
+        """Open the transport and say hello."""
+        self._loop = loop
+        self.transport.open(loop, self.on_bytes)
+        self._send(encode(self._hello()))
+
+    def close(self) -> None:
+        self.clock.stop()
+        self.transport.close()
+
+    def reset(self) -> None:
+        """A device reset: sampling stops, state returns to power-up, hello again."""
+        self.clock.stop()
+        self.resets += 1
+        self._power_up()
+        self._send(encode(self._hello()))
+
+    # -- outgoing ------------------------------------------------------------------
+
+    def _send(self, frame: bytes) -> None:
+        if self._stall_until_us >= self.sim_time_us:
+            return
+        self.transport.write(frame)
+
+    def _next_seq(self, message_type: type[Message]) -> int:
+        """The next header seq for ``message_type`` (one counter per type sent, section 5)."""
+        seq = self._tx_seqs.get(message_type, 0)
+        self._tx_seqs[message_type] = (seq + 1) & 0xFFFF
+        return seq
+
+    def _hello_payload(self) -> tuple:
+        params = self.plant.params
+        sensors = self.sensors.params
+        capabilities = CAP_SIMULATED
+        if params.track.has_limit_switches:
+            capabilities |= CAP_LIMIT_SWITCHES
+        if self.identity.has_estop_button:
+            capabilities |= CAP_ESTOP_BUTTON
+        kind = DRIVE_KIND_VOLTS if params.drive.kind == "voltage" else DRIVE_KIND_NEWTONS
+        return (
+            PROTOCOL_VERSION,
+            SCHEMA_FINGERPRINT,
+            self.identity.device_id,
+            *FIRMWARE_VERSION,
+            self.identity.sample_rate_hz,
+            sensors.cart_counts_per_m,
+            sensors.pendulum_counts_per_rev,
+            params.track.length_m,
+            params.drive.limit,
+            kind,
+            capabilities,
+        )
+
+    def _hello(self) -> DeviceHello:
+        return DeviceHello(self._next_seq(DeviceHello), *self._hello_fields)
+
+    def _reply(self, command: Message, result: ReplyResult) -> None:
+        self._send(encode(Reply(self._next_seq(Reply), command.TYPE_ID, command.seq, int(result))))
+
+    def _latch_fault(self, bit: int, detail: float) -> None:
+        """Latch fault ``bit``, cut the drive at once, disarm, and report it."""
+        self.armed = False
+        self.drive_output = 0.0
+        self._pending_drive = None
+        if self.faults & bit:
+            return
+        self.faults |= bit
+        self._send(encode(FaultReport(self._next_seq(FaultReport), self.faults, bit, detail)))
+
+    # -- incoming ------------------------------------------------------------------
+
+    def on_bytes(self, data: bytes) -> None:
+        for message in self.decoder.feed(data):
+            if type(message) is Drive:
+                self._on_drive(message)
+            else:
+                self._on_command(message)
+
+    def _on_drive(self, message: Drive) -> None:
+        if not self.configured:
+            return
+        drive = message.drive
+        if not math.isfinite(drive):
+            drive = 0.0
+        self._pending_drive = applied_command(self._drive_params, drive)
+        self._last_feed_us = self.t_us
+        behind = (self._sample_seq - message.answers_seq) & 0xFFFF
+        if behind == 0:
+            self.clock.command_received()
+        elif behind < 0x8000:
+            self.late_commands = (self.late_commands + 1) & 0xFFFF
+
+    def _on_command(self, message: Message) -> None:
+        kind = type(message)
+        if kind is Heartbeat:
+            self._last_feed_us = self.t_us
+        elif kind is Configure:
+            self._on_configure(message)
+        elif kind is Arm:
+            self._on_arm(message)
+        elif kind is Stop:
+            self.armed = False
+            self.drive_output = 0.0
+            self._pending_drive = None
+            self._reply(message, ReplyResult.ACCEPTED)
+        elif kind is ClearFaults:
+            self.faults &= F_ESTOP if self.estop_pressed else 0
+            self._reply(message, ReplyResult.FAULT_LATCHED if self.faults else ReplyResult.ACCEPTED)
+        elif kind is Identify:
+            self._send(encode(self._hello()))
+        else:
+            self._reply(message, ReplyResult.UNKNOWN_TYPE)  # a device-to-host message sent to us
+
+    def _on_configure(self, message: Configure) -> None:
+        rate = message.sample_rate_hz
+        if self.armed:
+            self._reply(message, ReplyResult.NOT_NOW)
+            return
+        if not 1 <= rate <= self.identity.sample_rate_hz or message.watchdog_ms < 1:
+            self._reply(message, ReplyResult.OUT_OF_RANGE)
+            return
+        self.sample_rate_hz = rate
+        self.watchdog_ms = message.watchdog_ms
+        self._reply(message, ReplyResult.ACCEPTED)
+        self.clock.stop()
+        self.configured = True
+        self._period_us = round(1e6 / rate)
+        self._sample_seq = -1
+        self._first_sample = True
+        self._last_feed_us = self.t_us
+        assert self._loop is not None, "start() the device before it receives commands"
+        self.clock.start(self._loop, self.take_sample, 1.0 / rate)
+
+    def _on_arm(self, message: Arm) -> None:
+        if message.arm not in (0, 1):
+            self._reply(message, ReplyResult.OUT_OF_RANGE)
+        elif message.arm == 0:
+            self.armed = False
+            self.drive_output = 0.0
+            self._pending_drive = None
+            self._reply(message, ReplyResult.ACCEPTED)
+        elif not self.configured:
+            self._reply(message, ReplyResult.NOT_NOW)
+        elif self.faults:
+            self._reply(message, ReplyResult.FAULT_LATCHED)
+        else:
+            self.armed = True
+            self._reply(message, ReplyResult.ACCEPTED)
+
+    # -- the sample ----------------------------------------------------------------
+
+    def take_sample(self) -> None:
+        """One sample: integrate to the sample instant, run faults and watchdog, latch, report."""
+        if self._first_sample:
+            self._first_sample = False
+            dt_us = 0
+            self._nominal_next_us = self.t_us
+        else:
+            self._nominal_next_us += self._period_us
+            sample_us = self._nominal_next_us + self.sensors.sample_offset_us(self._period_us)
+            dt_us = sample_us - self.t_us
+        if dt_us > 0:
+            self.plant.step(self.drive_output, dt_us * 1e-6)
+            self.t_us += dt_us
+            self.sim_time_us += dt_us
+        for event in self.schedule.due(self.sim_time_us):
+            self.apply_fault(event)
+            if not self.configured:  # a reset: this sample never happened
+                return
+        if self.t_us - self._last_feed_us > self.watchdog_ms * 1000:
+            self._latch_fault(F_WATCHDOG, (self.t_us - self._last_feed_us) * 1e-3)
+        if not self.armed:
+            self.drive_output = 0.0
+        elif self._pending_drive is not None:
+            self.drive_output = self._pending_drive
+        self._pending_drive = None
+        self._sample_seq = seq = (self._sample_seq + 1) & 0xFFFF
+        self._send(self._telemetry_frame(seq))
+
+    def _telemetry_frame(self, seq: int) -> bytes:
+        """The whole Telemetry frame for this sample (same bytes as ``encode(Telemetry(...))``)."""
+        plant = self.plant
+        x_m, _v, theta_rad, _w = plant.state
+        cart, pendulum = self.sensors.encoder_counts(x_m, theta_rad)
+        neg, pos = plant.limit_switches
+        switches = (SW_LIMIT_NEG if neg else 0) | (SW_LIMIT_POS if pos else 0)
+        switches = (switches | self.stuck_switches) ^ self.schedule.chatter()
+        if plant.end_stop_touched:
+            switches |= SW_END_STOP
+        if self.estop_pressed:
+            switches |= SW_ESTOP_BUTTON
+        status = ST_WATCHDOG_ACTIVE
+        if self.armed:
+            status |= ST_ARMED
+        if self.clock.lockstep:
+            status |= ST_LOCKSTEP
+        return seal_frame(_TELEMETRY_BODY.pack(
+            *_TELEMETRY_HEADER,
+            seq,
+            self.t_us,
+            wrap_i32(cart + self.cart_glitch_counts),
+            wrap_i32(pendulum + self.pendulum_glitch_counts),
+            switches,
+            self.faults,
+            status,
+            self.drive_output,
+            NAN,
+            NAN,
+            self.late_commands,
+        ))
+
+    # -- faults and the operator's button ------------------------------------------
+
+    def apply_fault(self, event: FaultEvent) -> None:
+        """Carry out one injected fault now."""
+        if isinstance(event, Impulse):
+            self.plant.apply_impulse(pendulum_ns=event.pendulum_ns, cart_ns=event.cart_ns)
+        elif isinstance(event, Stall):
+            self._stall_until_us = self.sim_time_us + round(event.duration_ms * 1000)
+        elif isinstance(event, Reset):
+            self.reset()
+        elif isinstance(event, EncoderGlitch):
+            if event.encoder == "cart":
+                self.cart_glitch_counts += event.counts
+            else:
+                self.pendulum_glitch_counts += event.counts
+        elif isinstance(event, StuckSwitch):
+            self.stuck_switches |= _SWITCH_BITS[event.side]
+        elif isinstance(event, DriverFault):
+            self._latch_fault(F_DRIVER, NAN)
+        else:
+            raise TypeError(f"unknown fault event {event!r}")
+
+    def press_estop(self) -> None:
+        """The rig's e-stop button goes down: drive cut at once, F_ESTOP latched."""
+        self.estop_pressed = True
+        self._latch_fault(F_ESTOP, NAN)
+
+    def release_estop(self) -> None:
+        """The button comes up; F_ESTOP stays latched until ClearFaults."""
+        self.estop_pressed = False

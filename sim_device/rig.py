@@ -1,0 +1,134 @@
+"""A whole simulated rig, assembled and ready to run inside an asyncio event loop.
+
+:class:`SimulatedRig` puts the plant, the sensors, the device firmware, a
+clock, a transport and the fault plan together and is the API for whoever
+owns the rig in-process (``poise sim``, the daemon's simulated mode, tests):
+
+    rig = SimulatedRig(spec, PtyTransport(), lockstep=True, seed=7)
+    rig.start()                      # inside a running loop; says hello
+    print(rig.where)                 # the pty path to open with pyserial
+    rig.schedule_impulse(2.0, pendulum_ns=0.05)
+    ...
+    rig.close()
+
+Every method must be called from the thread running the rig's event loop
+(use ``loop.call_soon_threadsafe`` from elsewhere).
+"""
+
+from __future__ import annotations
+
+import asyncio
+import math
+from dataclasses import dataclass
+
+from sim_device.clocks import LockstepClock, RealTimeClock, SampleClock
+from sim_device.device import DeviceIdentity, SimulatedDevice
+from sim_device.faults import (
+    FaultEvent,
+    FaultPlan,
+    FaultSchedule,
+    FaultyLine,
+    Impulse,
+    derived_seed,
+)
+from sim_device.plant import Plant, PlantParams, State
+from sim_device.sensors import SensorParams, Sensors
+from sim_device.transports import Transport
+
+__all__ = ["RigSpec", "SimulatedRig"]
+
+HANGING_AT_REST: State = (0.0, 0.0, math.pi, 0.0)
+NO_FAULTS = FaultPlan()
+
+
+@dataclass(frozen=True)
+class RigSpec:
+    """Everything physical about a simulated rig: its mechanics, its sensors, its identity."""
+
+    plant: PlantParams
+    sensors: SensorParams
+    identity: DeviceIdentity
+    plant_substeps: int = 2
+
+
+class SimulatedRig:
+    """One simulated rig on one transport.
+
+    ``lockstep`` takes one sample per drive command (deterministic; real-time
+    pacing resumes after ``lockstep_grace_s`` of host silence); otherwise the
+    rig samples on the wall clock. ``seed`` fixes every random draw (sensor
+    noise, jitter, line faults, switch chatter).
+    """
+
+    def __init__(
+        self,
+        spec: RigSpec,
+        transport: Transport,
+        *,
+        lockstep: bool = False,
+        seed: int = 0,
+        faults: FaultPlan = NO_FAULTS,
+        lockstep_grace_s: float = 0.5,
+    ):
+        self.spec = spec
+        self.faults = faults
+        if faults.line_faults:
+            transport = FaultyLine(transport, faults.drop_rate, faults.corrupt_rate, seed)
+        self.transport = transport
+        self.clock: SampleClock = LockstepClock(lockstep_grace_s) if lockstep else RealTimeClock()
+        state0 = HANGING_AT_REST
+        if faults.initial_angle_rad is not None:
+            state0 = (0.0, 0.0, faults.initial_angle_rad, 0.0)
+        self.plant = Plant(spec.plant, state0, substeps=spec.plant_substeps)
+        self.device = SimulatedDevice(
+            spec.identity,
+            self.plant,
+            Sensors(spec.sensors, derived_seed(seed, "sensors")),
+            transport,
+            self.clock,
+            FaultSchedule(faults, seed),
+        )
+
+    def start(self, loop: asyncio.AbstractEventLoop | None = None) -> None:
+        """Open the transport on ``loop`` (default: the running loop) and say hello."""
+        self.device.start(loop or asyncio.get_running_loop())
+
+    def close(self) -> None:
+        self.device.close()
+
+    @property
+    def where(self) -> str:
+        """Where a host connects: a pty path, a ``socket://`` URL, or the pipe's name."""
+        return self.transport.where
+
+    @property
+    def sim_time_s(self) -> float:
+        """Simulated seconds since the rig started (not reset by a device reset)."""
+        return self.device.sim_time_us * 1e-6
+
+    @property
+    def state(self) -> State:
+        """The plant's true state ``(x_m, v_mps, theta_rad, omega_radps)``."""
+        return self.plant.state
+
+    def schedule_fault(self, at_sim_time_s: float, event: FaultEvent) -> None:
+        """Inject ``event`` at the first sample at or after ``at_sim_time_s``."""
+        self.device.schedule.add(at_sim_time_s, event)
+
+    def schedule_impulse(self, at_sim_time_s: float, pendulum_ns: float = 0.0, cart_ns: float = 0.0) -> None:
+        """Strike the pendulum (horizontally, at its centre of mass) and/or the cart later."""
+        self.schedule_fault(at_sim_time_s, Impulse(pendulum_ns, cart_ns))
+
+    def apply_impulse_now(self, pendulum_ns: float = 0.0, cart_ns: float = 0.0) -> None:
+        """Strike the pendulum and/or the cart now (N s, +x positive)."""
+        self.device.apply_fault(Impulse(pendulum_ns, cart_ns))
+
+    def press_estop(self) -> None:
+        self.device.press_estop()
+
+    def release_estop(self) -> None:
+        self.device.release_estop()
+
+    def reset(self) -> None:
+        """Reset the device now (as a brown-out would)."""
+        self.device.reset()

@@ -1,0 +1,93 @@
+"""What the simulated rig's sensors report: quantised encoder counts and sample times.
+
+Encoders are incremental, as on the real rig: the counts are zero where the
+rig powered up. The simulated rig powers up with the cart at the track centre
+and the pendulum hanging at rest, so the counts are the plant model's
+:func:`sim_device.plant.cart_counts` and :func:`sim_device.plant.pendulum_counts`
+(nearest count; cart 0 at the centre, pendulum 0 hanging, positive with ``+x``
+and with ``theta`` in the angle convention of DEVELOPERS.md). Counts keep
+counting over whole turns and wrap as signed 32-bit integers, like a hardware
+counter. A device reset does not re-zero them (the counter keeps its power).
+
+Optional imperfections, all drawn from one seeded generator so a run repeats
+exactly: Gaussian noise added to each reading (in counts, before
+quantisation) and sample-time jitter (each sample taken a little early or
+late; the device reports the actual time and the plant is integrated to it).
+"""
+
+from __future__ import annotations
+
+import math
+import random
+from dataclasses import dataclass
+
+from sim_device.plant import cart_counts, pendulum_counts
+
+__all__ = ["SensorParams", "Sensors", "wrap_i32"]
+
+TWO_PI = 2.0 * math.pi
+
+
+@dataclass(frozen=True)
+class SensorParams:
+    """Encoder resolutions and the optional imperfections of the sensors."""
+
+    cart_counts_per_m: float
+    pendulum_counts_per_rev: int
+    cart_noise_counts: float = 0.0
+    pendulum_noise_counts: float = 0.0
+    jitter_us: float = 0.0
+
+    def __post_init__(self) -> None:
+        if not self.cart_counts_per_m > 0.0:
+            raise ValueError(f"sensors.cart_counts_per_m must be > 0 (got {self.cart_counts_per_m!r})")
+        if self.pendulum_counts_per_rev < 4:
+            raise ValueError(
+                f"sensors.pendulum_counts_per_rev must be >= 4 (got {self.pendulum_counts_per_rev!r})"
+            )
+        for name in ("cart_noise_counts", "pendulum_noise_counts", "jitter_us"):
+            if not getattr(self, name) >= 0.0:
+                raise ValueError(f"sensors.{name} must be >= 0 (got {getattr(self, name)!r})")
+
+
+def wrap_i32(value: int) -> int:
+    """``value`` as a signed 32-bit counter would hold it."""
+    return (value + 0x8000_0000) % 0x1_0000_0000 - 0x8000_0000
+
+
+class Sensors:
+    """Turns the plant's true state into encoder counts and sample times."""
+
+    def __init__(self, params: SensorParams, seed: int = 0):
+        self.params = params
+        self._rng = random.Random(seed)
+        self._cart_noise_m = params.cart_noise_counts / params.cart_counts_per_m
+        self._pendulum_noise_rad = params.pendulum_noise_counts * TWO_PI / params.pendulum_counts_per_rev
+
+    def encoder_counts(self, x_m: float, theta_rad: float) -> tuple[int, int]:
+        """``(cart_counts, pendulum_counts)`` for the true cart position and pendulum angle.
+
+        Noise is added to the true position before quantisation, so it shows as
+        the occasional one-count flicker a real encoder on a vibrating rig gives.
+        """
+        if self._cart_noise_m:
+            x_m += self._rng.gauss(0.0, self._cart_noise_m)
+        if self._pendulum_noise_rad:
+            theta_rad += self._rng.gauss(0.0, self._pendulum_noise_rad)
+        params = self.params
+        return (
+            wrap_i32(cart_counts(x_m, params.cart_counts_per_m)),
+            wrap_i32(pendulum_counts(theta_rad, params.pendulum_counts_per_rev)),
+        )
+
+    def sample_offset_us(self, period_us: int) -> int:
+        """How far (µs) the next sample is taken from its nominal time.
+
+        Gaussian with standard deviation ``jitter_us``, clipped to a quarter
+        period so samples never swap order.
+        """
+        jitter = self.params.jitter_us
+        if not jitter:
+            return 0
+        bound = period_us // 4
+        return max(-bound, min(bound, round(self._rng.gauss(0.0, jitter))))
