@@ -44,9 +44,11 @@ def rig_config_text(
     return "\n".join(lines) + "\n" + extra
 
 
-def write_rig_config(tmp_path: Path, base: Path = KESTREL, extra: str = "") -> Path:
+def write_rig_config(
+    tmp_path: Path, base: Path = KESTREL, extra: str = "", edits: dict[str, str] | None = None
+) -> Path:
     path = tmp_path / "rig.toml"
-    path.write_text(rig_config_text(tmp_path, base, extra))
+    path.write_text(rig_config_text(tmp_path, base, extra, edits))
     return path
 
 

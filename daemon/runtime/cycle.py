@@ -8,8 +8,9 @@ the frame objects themselves::
 then the sample row goes to the recorder's queue (``put_sample``, never blocks).
 The rig's clock paces the loop: every Telemetry is answered by exactly one
 Drive. If several Telemetry frames arrive in one read (the host was late),
-only the newest is answered and the others are counted in ``missed``; the
-cycle never bursts to catch up.
+only the newest is answered and the others are counted in ``missed`` (the
+estimator still steps through them, so its rates stay right); the cycle never
+bursts to catch up.
 
 Timing: ``t0`` is taken as soon as ``os.read`` returns, ``t_write`` right
 after ``os.write``; their difference is the read->write latency, kept per
@@ -171,12 +172,22 @@ class ControlCycle:
         for message in messages:
             if message.__class__ is Telemetry:
                 if telemetry is not None:
-                    self.missed += 1
+                    self._skip(telemetry)
                 telemetry = message
             else:
                 self._on_message(message)
         if telemetry is not None:
             self._sample(telemetry, t0, t1)
+
+    def _skip(self, tm: Telemetry) -> None:
+        """An older sample overtaken by a newer one in the same read: estimate through it, no answer.
+
+        The estimator's rates assume one sample period per update, so skipping its update would
+        scale the velocity estimates of the answered sample by the number of periods missed.
+        """
+        self.missed += 1
+        self.controls.estimator.update(tm.cart_counts, tm.pendulum_counts, self._prev_applied)
+        self._prev_applied = tm.drive_applied
 
     def _sample(self, tm: Telemetry, t0: int, t1: int) -> None:
         t_us = tm.t_us

@@ -133,6 +133,10 @@ class PoiseService:
             await self._release()
             raise OperatorError(str(exc)) from None
         self.cycle.put_sample = self.recorder.put_sample
+        # Collect once now, before telemetry flows, and keep the start-up objects out of later
+        # collections: automatic collection is off while the drive may move (see the cycle).
+        gc.collect()
+        gc.freeze()
         self._tasks.append(asyncio.create_task(self._housekeeping(), name="poise-housekeeping"))
         try:
             await self._connect(url)
@@ -146,14 +150,6 @@ class PoiseService:
                 name="poise-watchdog",
             )
         )
-        if self.serve_api:
-            self.api = ApiServer(self, self.config.api)
-            try:
-                await self.api.start()
-            except OperatorError:
-                self.api = None
-                await self._release()
-                raise
         try:
             async with asyncio.timeout(FIRST_TELEMETRY_TIMEOUT_S):
                 await self.cycle.wait_for_state(set(State) - {State.DISCONNECTED})
@@ -164,8 +160,15 @@ class PoiseService:
                 f"rig at {url} accepted Configure but sent no telemetry in "
                 f"{FIRST_TELEMETRY_TIMEOUT_S:g} s"
             ) from None
-        gc.collect()
-        gc.freeze()
+        if self.serve_api:
+            self.api = ApiServer(self, self.config.api)
+            try:
+                await self.api.start()
+            except OperatorError:
+                self.api = None
+                await self._release()
+                raise
+        gc.freeze()  # everything made since the collection below is start-up state too
         sys.setswitchinterval(GIL_SWITCH_INTERVAL_S)
         log.info("serving rig %s on %s", self.config.rig.id, url)
 
