@@ -1,0 +1,185 @@
+"""The real daemon (`poise run`, real time) against the simulator in another process (`poise sim --pty`).
+
+- kill -9 of the daemon while it balances: the simulator's own watchdog cuts
+  the drive within its timeout (the daemon cannot help: it is dead).
+- The control API under malformed and hostile input, a client that never
+  reads, and a client that hangs up mid-stream: clear errors, and the rig
+  holding its cart keeps going (no fault, no loop stall) throughout.
+
+The rig config used has no limit switches (homing declares the present
+position the centre, so the tests need no half-minute homing run in real time)
+and, because the machine running the tests is shared, link and loop budgets
+and a device watchdog several times the demo rig's.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import json
+import os
+import signal
+import sys
+import time
+
+import pytest
+from test_daemon_support import write_rig_config
+
+from daemon.api.client import ApiClient, wait_for_daemon
+from daemon.errors import CommandRefused
+from protocol import F_WATCHDOG, ST_ARMED, FaultReport, FrameDecoder, Telemetry
+
+POISE = [sys.executable, "-m", "daemon.cli"]
+WATCHDOG_MS = 200
+EDITS = {"has_limit_switches": "false", "device_watchdog_ms": str(WATCHDOG_MS)}
+EXTRA = "[interlocks]\nlink_timeout_samples = 50\noverrun_budget_us = 20000.0\n"
+START_TIMEOUT_S = 60.0
+
+
+async def start_sim(config) -> tuple[asyncio.subprocess.Process, str]:
+    sim = await asyncio.create_subprocess_exec(
+        *POISE, "sim", "--pty", "--config", str(config), stdout=asyncio.subprocess.PIPE
+    )
+    async with asyncio.timeout(START_TIMEOUT_S):
+        line = (await sim.stdout.readline()).decode()
+    return sim, line.rsplit("connect to ", 1)[1].strip()
+
+
+async def start_daemon(config, pty_path: str, socket_path: str):
+    daemon = await asyncio.create_subprocess_exec(
+        *POISE, "run", "--config", str(config), "--port", pty_path,
+        stdout=asyncio.subprocess.DEVNULL, stderr=asyncio.subprocess.PIPE,
+    )
+    try:
+        async with asyncio.timeout(START_TIMEOUT_S):
+            client = await wait_for_daemon(socket_path, retry_s=0.1)
+    except TimeoutError:
+        daemon.kill()
+        _out, err = await daemon.communicate()
+        raise AssertionError(f"daemon did not start: {err.decode()[-2000:]}") from None
+    return daemon, client
+
+
+async def stop(process: asyncio.subprocess.Process) -> None:
+    if process.returncode is None:
+        process.send_signal(signal.SIGTERM)
+        async with asyncio.timeout(START_TIMEOUT_S):
+            await process.wait()
+
+
+async def wait_for_state(client: ApiClient, *states: str, timeout_s: float = 60.0) -> dict:
+    async with asyncio.timeout(timeout_s):
+        while True:
+            status = await client.request("status")
+            if status["state"] in states:
+                return status
+            assert status["state"] not in ("FAULT", "ESTOP"), status["faults"]
+            await asyncio.sleep(0.05)  # polling a remote daemon's status, as a CLI user would
+
+
+async def ready(client: ApiClient) -> None:
+    await client.request("home")
+    await wait_for_state(client, "IDLE")
+    await client.request("arm")
+    await wait_for_state(client, "READY")
+
+
+async def swing_up(client: ApiClient) -> None:
+    async with asyncio.timeout(60.0):
+        while True:
+            try:
+                await client.request("swing_up")
+                break
+            except CommandRefused as refused:
+                assert "hanging_still" in str(refused) or "link.rate" in str(refused), refused
+                await asyncio.sleep(0.1)
+    await wait_for_state(client, "BALANCE")
+
+
+def read_pty_frames(path: str, seconds: float) -> list:
+    """Everything the simulator sends on ``path`` over the next ``seconds``, decoded."""
+    decoder = FrameDecoder()
+    fd = os.open(path, os.O_RDONLY | os.O_NOCTTY | os.O_NONBLOCK)
+    messages = []
+    deadline = time.monotonic() + seconds
+    try:
+        while time.monotonic() < deadline:
+            try:
+                messages += decoder.feed(os.read(fd, 65536))
+            except BlockingIOError:
+                time.sleep(0.01)
+    finally:
+        os.close(fd)
+    return messages
+
+
+@pytest.mark.slow
+async def test_kill_9_of_the_daemon_while_balancing_leaves_the_drive_off_within_the_watchdog(tmp_path):
+    config = write_rig_config(tmp_path, extra=EXTRA, edits=EDITS)
+    socket_path = str(tmp_path / "poise.sock")
+    sim, pty_path = await start_sim(config)
+    try:
+        daemon, client = await start_daemon(config, pty_path, socket_path)
+        await ready(client)
+        await swing_up(client)
+        await asyncio.sleep(0.5)  # let it balance for a moment of real time
+        assert (await client.request("status"))["state"] == "BALANCE"
+        daemon.kill()
+        await daemon.wait()
+        frames = await asyncio.to_thread(read_pty_frames, pty_path, 1.0)
+    finally:
+        await stop(sim)
+    reports = [m for m in frames if type(m) is FaultReport and m.faults & F_WATCHDOG]
+    assert reports, "the simulator never reported its watchdog"
+    period_ms = 1000.0 / 500
+    assert WATCHDOG_MS <= reports[0].detail <= WATCHDOG_MS + 2 * period_ms  # ms since the last command
+    telemetry = [m for m in frames if type(m) is Telemetry]
+    assert telemetry and telemetry[-1].drive_applied == 0.0
+    assert not telemetry[-1].status & ST_ARMED and telemetry[-1].faults & F_WATCHDOG
+
+
+@pytest.mark.slow
+async def test_hostile_api_clients_do_not_disturb_a_holding_rig(tmp_path):
+    config = write_rig_config(tmp_path, extra=EXTRA, edits=EDITS)
+    socket_path = str(tmp_path / "poise.sock")
+    sim, pty_path = await start_sim(config)
+    try:
+        daemon, client = await start_daemon(config, pty_path, socket_path)
+        await ready(client)
+        before = await client.request("status")
+
+        reader, writer = await asyncio.open_unix_connection(socket_path)
+        replies = []
+        for line in (b"{not json\n", b'{"id": 1, "cmd": "fly"}\n',
+                     b'{"id": 2, "cmd": "setpoint", "args": {"x_m": "far"}}\n',
+                     b'{"id": 3, "cmd": "setpoint", "args": {"x_m": 5.0}}\n', b"[1, 2, 3]\n"):
+            writer.write(line)
+            replies.append(json.loads(await reader.readline()))
+        assert [reply["ok"] for reply in replies] == [False] * 5
+        assert all("\n" not in reply["error"] and reply["error"] for reply in replies)
+        assert "fly" in replies[1]["error"] and "x_m" in replies[2]["error"]
+        assert "soft limits" in replies[3]["error"]
+        writer.write(b"x" * 70_000 + b"\n")  # longer than api.max_line_bytes
+        oversize = json.loads(await reader.readline())
+        assert not oversize["ok"] and "longer than" in oversize["error"]
+        assert await reader.read() == b""  # and the connection is closed
+        writer.close()
+
+        # A subscriber that never reads, and one that hangs up mid-stream.
+        _slow_reader, slow = await asyncio.open_unix_connection(socket_path)
+        slow.write(b'{"id": 1, "cmd": "subscribe", "args": {"rate_hz": 50}}\n')
+        hasty_reader, hasty = await asyncio.open_unix_connection(socket_path)
+        hasty.write(b'{"id": 1, "cmd": "subscribe", "args": {"rate_hz": 50}}\n')
+        await hasty_reader.readline()
+        hasty.transport.abort()
+        await asyncio.sleep(2.0)  # real time passes with the slow subscriber connected
+
+        after = await client.request("status")
+        slow.transport.abort()
+        await client.close()
+        await stop(daemon)
+        assert daemon.returncode == 0
+    finally:
+        await stop(sim)
+    assert after["state"] == "READY" and after["faults"] == [], after["faults"]
+    assert after["link"]["frames_rx"] > before["link"]["frames_rx"]
+    assert after["cycle"]["samples"] - before["cycle"]["samples"] >= 500  # >2 s at 500 Hz went by
