@@ -1,26 +1,32 @@
 """The simulated rig's firmware: a device loop that speaks exactly the wire protocol.
 
-Behaviour, as a firmware author would implement it (protocol/PROTOCOL.md):
+It follows protocol/PROTOCOL.md (sections 5-10) as a firmware author would:
 
-- At power-up and after a reset the device sends a DeviceHello, sets F_RESET
-  and waits, disarmed, for a Configure. Identify is answered with a DeviceHello.
-- Configure (answered with a Reply) starts sampling at the requested rate,
-  telemetry at seq 0. Every sample sends one Telemetry frame.
+- At power-up and after a reset the device sends a DeviceHello, latches
+  F_RESET and waits, disarmed and silent, for a Configure. Identify is
+  answered with a DeviceHello in every state.
+- An accepted Configure (rate 1 .. the hello's sample rate) starts sampling,
+  telemetry at seq 0, and the watchdog. Every sample sends one Telemetry.
 - A Drive received after sample ``k`` takes effect at sample ``k + 1`` (one
-  sample of delay, as on real hardware) and is held until the next Drive.
-  A Drive answering an older sample than the latest is counted as late and
-  still applied (latest wins). Drives are clamped to ``±drive_limit``; a
-  non-finite drive is ignored.
-- Disarmed, the applied drive is zero. Stop, disarm, a driver fault and the
-  e-stop button cut the drive at once, not at the next sample.
+  sample of delay, as on real hardware) and is held until the next Drive;
+  ``drive_applied`` is the drive in effect from the sample instant on. A Drive
+  answering an older sample than the latest is late: counted, and still
+  applied (latest wins). Drives are clamped to ``±drive_limit``; NaN or
+  infinite counts as 0. In lockstep only the Drive answering the latest
+  sample advances the clock, so no Drive is ever late there.
+- Disarmed, the applied drive is zero. Stop, disarm, any newly latched fault
+  and the e-stop button cut the drive at once, not at the next sample.
 - The watchdog: if no valid Drive or Heartbeat arrives within ``watchdog_ms``
   of device time, the drive is cut, the device disarms and F_WATCHDOG is
-  latched. Latched faults refuse Arm until ClearFaults (which clears only
-  faults whose cause is gone: F_ESTOP stays while the button is pressed).
-- A FaultReport is sent whenever a fault flag becomes latched.
+  latched. Latched faults refuse Arm until ClearFaults, which clears only
+  faults whose cause is gone (F_ESTOP stays while the button is pressed).
+- A FaultReport is sent whenever a fault bit becomes latched.
+- Each type of message sent has its own sequence counter (Telemetry's is the
+  sample index).
 
-Frames the device sends other than Telemetry carry their own sequence number,
-counting from 0 at power-up and after a reset.
+Not implemented here: Reply UNKNOWN_TYPE / BAD_PAYLOAD for well-framed frames
+of an unknown type or wrong length, because the protocol decoder drops those
+without handing the device their type and seq (it counts them).
 """
 
 from __future__ import annotations

@@ -61,20 +61,32 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="start the pendulum at D degrees (0 upright, 180 hanging)")
 
 
-def rig_spec(config: PoiseConfig, encoder_noise_counts: float, jitter_us: float) -> RigSpec:
-    """The daemon's simulated rig for ``config``, with these sensor imperfections."""
-    from dataclasses import replace
+def rig_spec(config: PoiseConfig, encoder_noise_counts: float = 0.0, jitter_us: float = 0.0) -> RigSpec:
+    """The simulated rig a config describes (plant, encoders, hello identity), plus sensor imperfections.
 
-    from daemon.runtime.embedded_sim import rig_spec as plain_rig_spec
+    The daemon's built-in simulated rig uses this too, so ``poise sim`` and
+    ``poise run --sim`` simulate the same rig.
+    """
+    from daemon.config.plant import plant_params
+    from sim_device.device import DeviceIdentity
+    from sim_device.rig import RigSpec
+    from sim_device.sensors import SensorParams
 
-    spec = plain_rig_spec(config)
-    sensors = replace(
-        spec.sensors,
-        cart_noise_counts=encoder_noise_counts,
-        pendulum_noise_counts=encoder_noise_counts,
-        jitter_us=jitter_us,
+    return RigSpec(
+        plant=plant_params(config),
+        sensors=SensorParams(
+            cart_counts_per_m=config.encoders.cart_counts_per_m,
+            pendulum_counts_per_rev=config.encoders.pendulum_counts_per_rev,
+            cart_noise_counts=encoder_noise_counts,
+            pendulum_noise_counts=encoder_noise_counts,
+            jitter_us=jitter_us,
+        ),
+        identity=DeviceIdentity(
+            device_id=config.rig.id,
+            sample_rate_hz=config.sampling.rate_hz,
+            watchdog_ms=config.sampling.device_watchdog_ms,
+        ),
     )
-    return replace(spec, sensors=sensors)
 
 
 def _number(option: str, text: str, low: float = -math.inf, high: float = math.inf) -> float:

@@ -1,0 +1,270 @@
+"""The simulated rig on the wire: every test runs over a real pty (opened with pyserial),
+over loopback TCP (pyserial's socket:// URL) and over the in-process pipe.
+
+The host side of every test decodes with the real protocol decoder; what it sees is what the
+daemon would see from hardware. Expected behaviour is the one protocol/PROTOCOL.md specifies.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import itertools
+import math
+from collections.abc import AsyncIterator, Callable
+from dataclasses import replace
+
+import pytest
+import serial
+
+import protocol as p
+from daemon.commands.sim import rig_spec
+from daemon.config import demo_config_path, load_config
+from sim_device.faults import FaultPlan
+from sim_device.rig import RigSpec, SimulatedRig
+from sim_device.transports import InProcessPipe, PtyTransport, TcpTransport
+
+TRANSPORTS = ("pty", "tcp", "pipe")
+WAIT_S = 30.0  # a guard against a hung test, not a timing requirement
+
+
+def demo_spec(sample_rate_hz: int | None = None) -> RigSpec:
+    spec = rig_spec(load_config(demo_config_path()))
+    if sample_rate_hz is not None:
+        spec = replace(spec, identity=replace(spec.identity, sample_rate_hz=sample_rate_hz))
+    return spec
+
+
+class WireHost:
+    """A minimal host: writes encoded frames, decodes everything the rig sends."""
+
+    def __init__(self, write: Callable[[bytes], None]):
+        self.write = write
+        self.decoder = p.FrameDecoder()
+        self.raw = bytearray()
+        self.seen: list[p.Message] = []
+        self._inbox: asyncio.Queue[p.Message] = asyncio.Queue()
+        self.on_telemetry: Callable[[p.Telemetry], None] | None = None
+
+    def feed(self, data: bytes) -> None:
+        self.raw += data
+        for message in self.decoder.feed(data):
+            self.seen.append(message)
+            if self.on_telemetry is not None and type(message) is p.Telemetry:
+                self.on_telemetry(message)
+            self._inbox.put_nowait(message)
+
+    def send(self, message: p.Message) -> None:
+        self.write(p.encode(message))
+
+    async def expect(self, kind: type, where: Callable[[p.Message], bool] = lambda m: True):
+        """The next message of type ``kind`` satisfying ``where`` (others are skipped)."""
+
+        async def wait():
+            while True:
+                message = await self._inbox.get()
+                if type(message) is kind and where(message):
+                    return message
+
+        return await asyncio.wait_for(wait(), WAIT_S)
+
+    async def command(self, message: p.Message) -> p.Reply:
+        self.send(message)
+        return await self.expect(p.Reply, lambda r: r.for_type == message.TYPE_ID and r.for_seq == message.seq)
+
+    async def step(self, telemetry: p.Telemetry, drive: float) -> p.Telemetry:
+        """Answer ``telemetry`` with ``drive`` and return the next sample's Telemetry."""
+        self.write(p.encode_drive(telemetry.seq, drive, telemetry.seq))
+        return await self.expect(p.Telemetry, lambda t: t.seq == (telemetry.seq + 1) & 0xFFFF)
+
+    def answer_every_sample(
+        self, pending: p.Telemetry, drive: Callable[[int], float] = lambda seq: 0.0
+    ) -> None:
+        """Answer ``pending`` and then each Telemetry with one Drive (PROTOCOL.md section 8.1)."""
+
+        def answer(telemetry: p.Telemetry) -> None:
+            self.write(p.encode_drive(telemetry.seq, drive(telemetry.seq), telemetry.seq))
+
+        self.answer_with(pending, answer)
+
+    def answer_with(self, pending: p.Telemetry, answer: Callable[[p.Telemetry], None]) -> None:
+        """Call ``answer`` for ``pending`` now and for every Telemetry from now on."""
+        self.on_telemetry = answer
+        answer(pending)
+
+
+@contextlib.asynccontextmanager
+async def connect(kind: str, spec: RigSpec | None = None, **rig_options) -> AsyncIterator[tuple[SimulatedRig, WireHost]]:
+    """Start a simulated rig on transport ``kind`` and connect a host to it."""
+    loop = asyncio.get_running_loop()
+    spec = spec or demo_spec()
+    if kind == "pipe":
+        pipe = InProcessPipe()
+        rig = SimulatedRig(spec, pipe.device_end, **rig_options)
+        rig.start(loop)
+        host = WireHost(pipe.host_end.write)
+        pipe.host_end.open(loop, host.feed)
+        try:
+            yield rig, host
+        finally:
+            pipe.host_end.close()
+            rig.close()
+        return
+    transport = PtyTransport() if kind == "pty" else TcpTransport(0)
+    rig = SimulatedRig(spec, transport, **rig_options)
+    rig.start(loop)
+    port = serial.Serial(rig.where, timeout=0) if kind == "pty" else serial.serial_for_url(rig.where, timeout=0)
+    host = WireHost(port.write)
+    loop.add_reader(port.fileno(), lambda: host.feed(port.read(65536)))
+    try:
+        yield rig, host
+    finally:
+        loop.remove_reader(port.fileno())
+        port.close()
+        rig.close()
+
+
+async def handshake(host: WireHost, rate_hz: int, watchdog_ms: int) -> tuple[p.DeviceHello, p.Telemetry]:
+    """PROTOCOL.md section 10: a 0x00, Identify, hello, Configure; returns the hello and sample 0."""
+    host.write(b"\x00")
+    host.send(p.Identify(0))
+    hello = await host.expect(p.DeviceHello)
+    reply = await host.command(p.Configure(1, rate_hz, watchdog_ms))
+    assert reply.result == p.ReplyResult.ACCEPTED
+    return hello, await host.expect(p.Telemetry, lambda t: t.seq == 0)
+
+
+@pytest.mark.parametrize("kind", TRANSPORTS)
+async def test_handshake_then_telemetry_at_the_configured_rate(kind):
+    config = load_config(demo_config_path())
+    async with connect(kind, lockstep=True) as (_rig, host):
+        hello, first = await handshake(host, 250, 200)
+        host.answer_every_sample(first)
+        samples = [first] + [await host.expect(p.Telemetry) for _ in range(49)]
+    # The hello describes the configured rig (configs/kestrel-1.toml) in protocol terms.
+    assert hello.protocol_version == p.PROTOCOL_VERSION
+    assert hello.schema_fingerprint == p.SCHEMA_FINGERPRINT
+    assert hello.device_id == config.rig.id
+    assert hello.sample_rate_hz == config.sampling.rate_hz
+    assert hello.cart_counts_per_m == pytest.approx(config.encoders.cart_counts_per_m)
+    assert hello.pendulum_counts_per_rev == config.encoders.pendulum_counts_per_rev
+    assert hello.track_length_m == pytest.approx(config.track.length_m)
+    assert hello.drive_limit == pytest.approx(config.drive.limit)
+    assert hello.drive_kind == p.DRIVE_KIND_VOLTS
+    assert hello.capabilities & p.CAP_SIMULATED and hello.capabilities & p.CAP_LIMIT_SWITCHES
+    assert [s.seq for s in samples] == list(range(50))
+    assert [b.t_us - a.t_us for a, b in itertools.pairwise(samples)] == [4000] * 49  # 250 Hz
+    assert all(s.status & p.ST_LOCKSTEP and s.status & p.ST_WATCHDOG_ACTIVE for s in samples)
+    assert samples[0].faults == p.F_RESET  # latched since power-up until ClearFaults
+
+
+@pytest.mark.parametrize("kind", TRANSPORTS)
+async def test_silent_host_trips_the_watchdog_in_real_time(kind):
+    async with connect(kind) as (_rig, host):
+        await handshake(host, 500, 20)
+        report = await host.expect(p.FaultReport)
+        tripped = await host.expect(p.Telemetry, lambda t: t.faults & p.F_WATCHDOG)
+        before = [t for t in host.seen if type(t) is p.Telemetry and not t.faults & p.F_WATCHDOG]
+    assert report.code == p.F_WATCHDOG and report.faults & p.F_WATCHDOG
+    assert report.detail > 20.0  # ms since the last Drive/Heartbeat (PROTOCOL.md 6, FaultReport)
+    # Device time: Configure at t0, samples every 2 ms; the first sample more than 20 ms later trips.
+    t0 = before[0].t_us
+    assert tripped.t_us - t0 == 22_000
+    assert tripped.drive_applied == 0.0 and not tripped.status & p.ST_ARMED
+
+
+@pytest.mark.parametrize("kind", TRANSPORTS)
+async def test_heartbeats_alone_keep_the_watchdog_fed(kind):
+    async with connect(kind) as (_rig, host):
+        _hello, first = await handshake(host, 500, 100)
+        host.answer_with(first, lambda telemetry: host.send(p.Heartbeat(telemetry.seq)))
+        last = await host.expect(p.Telemetry, lambda t: t.seq == 300)  # 600 ms, six timeouts' worth
+    assert not last.faults & p.F_WATCHDOG
+    assert not any(type(m) is p.FaultReport for m in host.seen)
+
+
+@pytest.mark.parametrize("kind", TRANSPORTS)
+async def test_lockstep_run_repeats_byte_for_byte(kind):
+    """Same seed, same host: identical telemetry bytes, sensor noise and jitter included."""
+    spec = demo_spec()
+    spec = replace(spec, sensors=replace(spec.sensors, cart_noise_counts=3.0, pendulum_noise_counts=1.5,
+                                         jitter_us=40.0))
+
+    async def run(seed: int) -> bytes:
+        # A long grace: however slow this machine is, the device waits for the host.
+        async with connect(kind, spec, lockstep=True, seed=seed, lockstep_grace_s=30.0,
+                           faults=FaultPlan(initial_angle_rad=math.radians(150.0))) as (rig, host):
+            _hello, first = await handshake(host, 500, 50)
+            assert (await host.command(p.ClearFaults(2))).result == p.ReplyResult.ACCEPTED
+            assert (await host.command(p.Arm(3, 1))).result == p.ReplyResult.ACCEPTED
+            host.answer_every_sample(first, lambda seq: 3.0 * math.sin(seq * 0.02))
+            await host.expect(p.Telemetry, lambda t: t.seq == 600)
+            assert rig.clock.free_run_spells == 0
+            return bytes(host.raw)
+
+    first, second, other_seed = await run(7), await run(7), await run(8)
+    assert first == second
+    assert first != other_seed
+
+
+@pytest.mark.parametrize("kind", TRANSPORTS)
+async def test_drive_takes_effect_one_sample_later_and_only_when_armed(kind):
+    async with connect(kind, lockstep=True) as (_rig, host):
+        _hello, sample = await handshake(host, 500, 50)
+        disarmed = [sample]
+        for _ in range(20):
+            disarmed.append(await host.step(disarmed[-1], 2.0))
+        assert (await host.command(p.ClearFaults(2))).result == p.ReplyResult.ACCEPTED
+        assert (await host.command(p.Arm(3, 1))).result == p.ReplyResult.ACCEPTED
+        requested, armed = [], [disarmed[-1]]
+        for k in range(40):
+            requested.append(0.25 * (k % 16) - 1.0)  # exact in f32
+            armed.append(await host.step(armed[-1], requested[-1]))
+    assert all(t.drive_applied == 0.0 for t in disarmed)
+    assert all(t.cart_counts == disarmed[0].cart_counts for t in disarmed)  # the cart never moved
+    # Each Drive is in effect from the sample after the one it answers.
+    assert [t.drive_applied for t in armed[1:]] == requested
+    assert armed[0].drive_applied == 0.0
+
+
+@pytest.mark.parametrize("kind", TRANSPORTS)
+async def test_stop_cuts_the_drive_before_its_reply(kind):
+    async with connect(kind, lockstep=True) as (rig, host):
+        _hello, sample = await handshake(host, 500, 50)
+        await host.command(p.ClearFaults(2))
+        await host.command(p.Arm(3, 1))
+        sample = await host.step(sample, 4.0)
+        # A late Drive(0) (answering an older sample) is held for the next sample, so the drive in
+        # effect does not change yet, and lockstep does not advance on it.
+        host.write(p.encode_drive(9, 0.0, (sample.seq - 1) & 0xFFFF))
+        host.send(p.Identify(7))
+        await host.expect(p.DeviceHello)  # the device has handled the late Drive by now
+        held = rig.device.drive_output
+        reply = await host.command(p.Stop(4))
+        at_reply = rig.device.drive_output
+        after = await host.step(sample, 4.0)
+    assert sample.drive_applied == 4.0 and held == 4.0
+    assert reply.result == p.ReplyResult.ACCEPTED and at_reply == 0.0
+    assert after.drive_applied == 0.0 and not after.status & p.ST_ARMED
+    assert after.late_commands == sample.late_commands + 1
+
+
+@pytest.mark.parametrize("kind", TRANSPORTS)
+async def test_commands_refused_in_the_wrong_state(kind):
+    async with connect(kind, lockstep=True) as (_rig, host):
+        host.send(p.Identify(0))
+        await host.expect(p.DeviceHello)
+        not_configured = await host.command(p.Arm(1, 1))
+        too_fast = await host.command(p.Configure(2, 501, 50))  # above the hello's 500 Hz
+        await handshake(host, 500, 50)
+        reset_latched = await host.command(p.Arm(3, 1))
+        bad_arm = await host.command(p.Arm(4, 2))
+        cleared = await host.command(p.ClearFaults(5))
+        armed = await host.command(p.Arm(6, 1))
+        while_armed = await host.command(p.Configure(7, 250, 50))
+    assert not_configured.result == p.ReplyResult.NOT_NOW
+    assert too_fast.result == p.ReplyResult.OUT_OF_RANGE
+    assert reset_latched.result == p.ReplyResult.FAULT_LATCHED
+    assert bad_arm.result == p.ReplyResult.OUT_OF_RANGE
+    assert cleared.result == armed.result == p.ReplyResult.ACCEPTED
+    assert while_armed.result == p.ReplyResult.NOT_NOW
