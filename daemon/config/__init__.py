@@ -21,7 +21,6 @@ from daemon.config.control import (
     HomingSettings,
     SwingUpSettings,
 )
-from daemon.config.plant import plant_params
 from daemon.config.rig import (
     CartSettings,
     DriveSettings,
@@ -40,7 +39,6 @@ __all__ = [
     "load_config",
     "demo_config_path",
     "parse_config",
-    "plant_params",
 ]
 
 

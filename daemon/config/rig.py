@@ -2,7 +2,7 @@
 
 These numbers are the one parameter set of the rig. The simulator, the
 linearisation for LQR design and model identification all read them, via
-:func:`daemon.config.plant_params` which maps them onto
+:func:`daemon.config.plant.plant_params` which maps them onto
 :class:`sim_device.plant.PlantParams`.
 """
 
