@@ -168,7 +168,7 @@ class SimulatedDevice:
         self._period_us = 0
         self._nominal_next_us = 0
         self._last_feed_us = 0
-        self._stall_until_us = -1
+        self._stall_until_us = 0
         self._first_sample = False
 
     def start(self, loop: asyncio.AbstractEventLoop) -> None:
@@ -191,7 +191,7 @@ class SimulatedDevice:
     # -- outgoing ------------------------------------------------------------------
 
     def _send(self, frame: bytes) -> None:
-        if self._stall_until_us >= self.sim_time_us:
+        if self.sim_time_us < self._stall_until_us:
             return
         self.transport.write(frame)
 

@@ -20,12 +20,22 @@ import serial
 import protocol as p
 from daemon.commands.sim import rig_spec
 from daemon.config import demo_config_path, load_config
-from sim_device.faults import FaultPlan
+from sim_device.faults import (
+    DriverFault,
+    EncoderGlitch,
+    FaultPlan,
+    Impulse,
+    Reset,
+    Stall,
+    StuckSwitch,
+)
 from sim_device.rig import RigSpec, SimulatedRig
 from sim_device.transports import InProcessPipe, PtyTransport, TcpTransport
 
 TRANSPORTS = ("pty", "tcp", "pipe")
 WAIT_S = 30.0  # a guard against a hung test, not a timing requirement
+RESEND_AFTER_S = 0.25  # the host resends unanswered commands, as PROTOCOL.md section 7 says
+RESENDS = 40
 
 
 def demo_spec(sample_rate_hz: int | None = None) -> RigSpec:
@@ -69,8 +79,20 @@ class WireHost:
         return await asyncio.wait_for(wait(), WAIT_S)
 
     async def command(self, message: p.Message) -> p.Reply:
-        self.send(message)
-        return await self.expect(p.Reply, lambda r: r.for_type == message.TYPE_ID and r.for_seq == message.seq)
+        """Send an acknowledged command and return its Reply, resending it while unanswered."""
+        return await self.request(
+            message, p.Reply, lambda r: r.for_type == message.TYPE_ID and r.for_seq == message.seq
+        )
+
+    async def request(self, message: p.Message, kind: type, where: Callable[[p.Message], bool]):
+        """Send ``message`` until an answer of type ``kind`` arrives (PROTOCOL.md section 7)."""
+        for _attempt in range(RESENDS):
+            self.send(message)
+            try:
+                return await asyncio.wait_for(self.expect(kind, where), RESEND_AFTER_S)
+            except TimeoutError:
+                continue
+        raise TimeoutError(f"no answer to {message}")
 
     async def step(self, telemetry: p.Telemetry, drive: float) -> p.Telemetry:
         """Answer ``telemetry`` with ``drive`` and return the next sample's Telemetry."""
@@ -125,13 +147,36 @@ async def connect(kind: str, spec: RigSpec | None = None, **rig_options) -> Asyn
 
 
 async def handshake(host: WireHost, rate_hz: int, watchdog_ms: int) -> tuple[p.DeviceHello, p.Telemetry]:
-    """PROTOCOL.md section 10: a 0x00, Identify, hello, Configure; returns the hello and sample 0."""
+    """PROTOCOL.md section 10: a 0x00, Identify, hello, Configure; the hello and the first sample."""
     host.write(b"\x00")
-    host.send(p.Identify(0))
-    hello = await host.expect(p.DeviceHello)
+    hello = await host.request(p.Identify(0), p.DeviceHello, lambda m: True)
     reply = await host.command(p.Configure(1, rate_hz, watchdog_ms))
     assert reply.result == p.ReplyResult.ACCEPTED
-    return hello, await host.expect(p.Telemetry, lambda t: t.seq == 0)
+    return hello, await host.expect(p.Telemetry)
+
+
+async def run_lockstep(
+    host: WireHost, first: p.Telemetry, until_seq: int, drive: Callable[[int], float] | float = 0.0
+) -> list[p.Telemetry]:
+    """Answer every sample before ``until_seq``; the Telemetry received up to it, in order.
+
+    The run stops answering there, so a lockstep device waits (and later free-runs): anything
+    it sends after ``until_seq`` is not part of the result.
+    """
+    stop_at = asyncio.get_running_loop().create_future()
+    drive_for = drive if callable(drive) else lambda seq: drive
+    start = next(i for i in range(len(host.seen) - 1, -1, -1) if host.seen[i] is first)
+
+    def answer(telemetry: p.Telemetry) -> None:
+        if telemetry.seq < until_seq:
+            host.write(p.encode_drive(telemetry.seq, drive_for(telemetry.seq), telemetry.seq))
+        elif not stop_at.done():
+            host.on_telemetry = None
+            stop_at.set_result(len(host.seen))
+
+    host.answer_with(first, answer)
+    end = await asyncio.wait_for(stop_at, WAIT_S)
+    return [m for m in host.seen[start:end] if type(m) is p.Telemetry]
 
 
 @pytest.mark.parametrize("kind", TRANSPORTS)
@@ -197,8 +242,7 @@ async def test_lockstep_run_repeats_byte_for_byte(kind):
             _hello, first = await handshake(host, 500, 50)
             assert (await host.command(p.ClearFaults(2))).result == p.ReplyResult.ACCEPTED
             assert (await host.command(p.Arm(3, 1))).result == p.ReplyResult.ACCEPTED
-            host.answer_every_sample(first, lambda seq: 3.0 * math.sin(seq * 0.02))
-            await host.expect(p.Telemetry, lambda t: t.seq == 600)
+            await run_lockstep(host, first, 600, lambda seq: 3.0 * math.sin(seq * 0.02))
             assert rig.clock.free_run_spells == 0
             return bytes(host.raw)
 
@@ -237,8 +281,7 @@ async def test_stop_cuts_the_drive_before_its_reply(kind):
         # A late Drive(0) (answering an older sample) is held for the next sample, so the drive in
         # effect does not change yet, and lockstep does not advance on it.
         host.write(p.encode_drive(9, 0.0, (sample.seq - 1) & 0xFFFF))
-        host.send(p.Identify(7))
-        await host.expect(p.DeviceHello)  # the device has handled the late Drive by now
+        await host.command(p.ClearFaults(8))  # answered: the device has handled the late Drive
         held = rig.device.drive_output
         reply = await host.command(p.Stop(4))
         at_reply = rig.device.drive_output
@@ -268,3 +311,154 @@ async def test_commands_refused_in_the_wrong_state(kind):
     assert bad_arm.result == p.ReplyResult.OUT_OF_RANGE
     assert cleared.result == armed.result == p.ReplyResult.ACCEPTED
     assert while_armed.result == p.ReplyResult.NOT_NOW
+
+
+# ---- injected faults, each as the host sees it ------------------------------------------------
+
+
+def faulty(*events, **plan) -> dict:
+    return {"lockstep": True, "lockstep_grace_s": 0.005, "faults": FaultPlan(events=tuple(events), **plan)}
+
+
+@pytest.mark.parametrize("kind", TRANSPORTS)
+async def test_dropped_frames_show_as_telemetry_gaps(kind):
+    async with connect(kind, **faulty(drop_rate=0.05), seed=3) as (rig, host):
+        _hello, first = await handshake(host, 500, 200)
+        dropped_before = rig.transport.frames_dropped
+        lost_before = host.decoder.counters.lost_frames
+        samples = await run_lockstep(host, first, 400)
+        dropped = rig.transport.frames_dropped - dropped_before
+        lost = host.decoder.counters.lost_frames - lost_before
+    seqs = [t.seq for t in samples]
+    assert dropped > 0
+    assert seqs == sorted(set(seqs)) and lost == dropped == seqs[-1] + 1 - len(seqs)
+
+
+@pytest.mark.parametrize("kind", TRANSPORTS)
+async def test_corrupted_frames_are_rejected_never_accepted(kind):
+    async with connect(kind, **faulty(corrupt_rate=0.05), seed=4) as (rig, host):
+        _hello, first = await handshake(host, 500, 200)
+        corrupted_before = rig.transport.frames_corrupted
+        lost_before = host.decoder.counters.lost_frames
+        samples = await run_lockstep(host, first, 400)
+        corrupted = rig.transport.frames_corrupted - corrupted_before
+        lost = host.decoder.counters.lost_frames - lost_before
+    counters = host.decoder.counters
+    assert corrupted > 0 and counters.crc_failures + counters.cobs_errors + counters.runts > 0
+    # CRC-16/CCITT detects every error burst of up to 16 bits, so a one-byte change never passes
+    # (W. W. Peterson and D. T. Brown, "Cyclic Codes for Error Detection", Proc. IRE, 1961).
+    # A corrupted delimiter merges a frame with the next: at most two lost per corruption. The
+    # last corrupted frame may not have been followed by a sample yet, so not yet counted lost.
+    assert corrupted - 1 <= lost <= 2 * corrupted
+    assert all(t.t_us == 2000 * t.seq and t.cart_counts == 0 for t in samples)  # nothing garbled
+
+
+async def test_stall_sends_nothing_for_its_duration_then_resumes():
+    async with connect("pipe", **faulty((0.1, Stall(30.0)))) as (_rig, host):
+        _hello, first = await handshake(host, 500, 200)
+        samples = await run_lockstep(host, first, 120)
+    times = [t.t_us for t in samples]
+    jump = max(b - a for a, b in itertools.pairwise(times))
+    # The stall starts at the sample at 100 ms and silences (100, 130] ms: 15 samples at 2 ms.
+    assert jump == 2000 * 16
+    assert host.decoder.counters.lost_frames == 15
+
+
+@pytest.mark.parametrize("kind", TRANSPORTS)
+async def test_device_reset_says_hello_again_and_restarts_its_counters(kind):
+    async with connect(kind, **faulty((0.05, Reset()))) as (_rig, host):
+        _hello, first = await handshake(host, 500, 200)
+        assert (await host.command(p.ClearFaults(2))).result == p.ReplyResult.ACCEPTED
+        host.answer_every_sample(first)
+        await host.expect(p.DeviceHello, lambda h: h.seq == 0)  # the hello counter restarted
+        host.on_telemetry = None
+        before = [m for m in host.seen if type(m) is p.Telemetry]
+        refused = await host.command(p.Arm(3, 1))  # not configured after a reset
+        _hello, restarted = await handshake(host, 500, 200)
+        still_latched = await host.command(p.Arm(4, 1))
+    assert before[-1].faults == 0 and before[-1].t_us == 48_000  # the last sample before 50 ms
+    assert refused.result == p.ReplyResult.NOT_NOW
+    assert restarted.seq == 0 and restarted.t_us == 0 and restarted.faults == p.F_RESET
+    assert still_latched.result == p.ReplyResult.FAULT_LATCHED
+
+
+async def test_encoder_glitch_jumps_the_count_and_stays():
+    async with connect("pipe", **faulty((0.02, EncoderGlitch(37)), (0.04, EncoderGlitch(-500, "cart")))) as (
+        _rig, host
+    ):
+        _hello, first = await handshake(host, 500, 200)
+        samples = await run_lockstep(host, first, 30)
+    # The rig hangs at rest, so the counts are the glitches alone.
+    assert [t.pendulum_counts for t in samples] == [0] * 10 + [37] * 21
+    assert [t.cart_counts for t in samples] == [0] * 20 + [-500] * 11
+
+
+async def test_stuck_and_noisy_limit_switches():
+    plan = faulty((0.0, StuckSwitch("neg")), noisy_switch="pos", noisy_switch_rate=0.25)
+    async with connect("pipe", **plan, seed=5) as (_rig, host):
+        _hello, first = await handshake(host, 500, 200)
+        samples = await run_lockstep(host, first, 399)
+    assert all(t.switches & p.SW_LIMIT_NEG for t in samples)  # the cart is at the centre
+    chatter = sum(1 for t in samples if t.switches & p.SW_LIMIT_POS)
+    # Binomial(400, 0.25): mean 100, standard deviation 8.7; this seed's count lies within 3 sigma.
+    assert 74 <= chatter <= 126
+
+
+@pytest.mark.parametrize("kind", TRANSPORTS)
+async def test_driver_fault_cuts_the_drive_and_is_reported(kind):
+    async with connect(kind, **faulty((0.02, DriverFault()))) as (_rig, host):
+        _hello, sample = await handshake(host, 500, 200)
+        await host.command(p.ClearFaults(2))
+        await host.command(p.Arm(3, 1))
+        samples = await run_lockstep(host, sample, 15, drive=3.0)
+        report = await host.expect(p.FaultReport)
+        rearm = await host.command(p.Arm(4, 1))
+        cleared = await host.command(p.ClearFaults(5))
+    assert report.code == p.F_DRIVER and math.isnan(report.detail)
+    tripped = [t for t in samples if t.faults & p.F_DRIVER]
+    assert tripped[0].t_us == 20_000
+    assert all(t.drive_applied == 0.0 and not t.status & p.ST_ARMED for t in tripped)
+    assert samples[9].drive_applied == 3.0 and samples[9].status & p.ST_ARMED
+    assert rearm.result == p.ReplyResult.FAULT_LATCHED and cleared.result == p.ReplyResult.ACCEPTED
+
+
+async def test_estop_button_latches_until_released_and_cleared():
+    async with connect("pipe", lockstep=True) as (rig, host):
+        _hello, sample = await handshake(host, 500, 200)
+        await host.command(p.ClearFaults(2))
+        await host.command(p.Arm(3, 1))
+        sample = await host.step(sample, 2.0)
+        rig.press_estop()
+        cut_at_once = rig.device.drive_output
+        report = await host.expect(p.FaultReport)
+        pressed = await host.step(sample, 2.0)
+        while_pressed = await host.command(p.ClearFaults(4))
+        rig.release_estop()
+        released = await host.step(pressed, 2.0)
+        cleared = await host.command(p.ClearFaults(5))
+    assert sample.drive_applied == 2.0 and cut_at_once == 0.0 and report.code == p.F_ESTOP
+    assert pressed.switches & p.SW_ESTOP_BUTTON and pressed.faults & p.F_ESTOP
+    assert pressed.drive_applied == 0.0 and not pressed.status & p.ST_ARMED
+    assert while_pressed.result == p.ReplyResult.FAULT_LATCHED
+    assert not released.switches & p.SW_ESTOP_BUTTON and released.faults & p.F_ESTOP
+    assert cleared.result == p.ReplyResult.ACCEPTED
+
+
+async def test_impulses_move_the_pendulum_and_the_cart_the_right_way():
+    async with connect("pipe", **faulty((0.01, Impulse(pendulum_ns=0.02)))) as (rig, host):
+        _hello, first = await handshake(host, 500, 200)
+        samples = await run_lockstep(host, first, 20)
+        rig.apply_impulse_now(cart_ns=0.05)
+        later = await run_lockstep(host, samples[-1], 40)
+    # Hanging pendulum, bob pushed toward +x: its top end leans to -x relative to the bob, so
+    # theta = pi + small positive angle (DEVELOPERS.md convention) and the count rises.
+    assert all(t.pendulum_counts == 0 for t in samples[:5])
+    assert samples[-1].pendulum_counts > 0
+    assert later[-1].cart_counts > samples[-1].cart_counts  # pushed toward +x
+
+
+async def test_initial_angle_shows_in_the_first_sample():
+    async with connect("pipe", **faulty(initial_angle_rad=math.radians(150.0))) as (_rig, host):
+        _hello, first = await handshake(host, 500, 200)
+    # Counts are 0 hanging (theta = pi), 4096 per turn: -30 degrees is -4096/12 = -341.33 counts.
+    assert first.pendulum_counts == -341
