@@ -51,7 +51,7 @@ from daemon.ui.widgets.rig_view import RigView
 from daemon.ui.widgets.state_panel import StatePanel
 from daemon.ui.widgets.traces import Traces
 
-STATUS_RATE_HZ = 20.0
+STATUS_RATE_HZ = 10.0
 # How long quitting waits for a controlled stop to bring the rig to rest.
 QUIT_STOP_TIMEOUT_S = 15.0
 

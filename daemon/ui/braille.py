@@ -64,12 +64,17 @@ class BrailleCanvas:
                 styles[key] = style
         text = Text(no_wrap=True, overflow="crop")
         for row in range(self.rows):
+            run: list[str] = []
+            run_style: Style | str | None = None
             for column in range(self.columns):
                 key = (column, row)
-                if key in bits:
-                    text.append(chr(BRAILLE_BASE + bits[key]), styles[key])
-                else:
-                    text.append(" ")
+                style = styles.get(key)
+                if style != run_style and run:
+                    text.append("".join(run), run_style)
+                    run = []
+                run_style = style
+                run.append(chr(BRAILLE_BASE + bits[key]) if key in bits else " ")
+            text.append("".join(run), run_style)
             if row < self.rows - 1:
                 text.append("\n")
         return text

@@ -11,6 +11,9 @@ KIND_STYLES = {"refused": WARN, "fault": BAD, "ignored": MUTED}
 
 
 class EventLog(StatusWidget):
+    def shown_part(self, status: dict) -> object:
+        return status.get("events")
+
     def render(self) -> Text:
         events = (self.status.get("events") or [])[-max(self.size.height, 1) :]
         text = Text(no_wrap=True, overflow="ellipsis")
@@ -18,7 +21,7 @@ class EventLog(StatusWidget):
             if index:
                 text.append("\n")
             kind = str(event.get("kind", ""))
-            text.append(f"{number(event.get('t_s'), '9.3f')} ", MUTED)
-            text.append(f"{event.get('source', ''):<10} ", MUTED)
+            text.append(f"{number(event.get('t_s'), '8.2f')} ", MUTED)
+            text.append(f"{event.get('source', ''):<9} ", MUTED)
             text.append(str(event.get("text", "")), KIND_STYLES.get(kind, INK))
         return text

@@ -2,50 +2,49 @@
 
 from __future__ import annotations
 
-from rich.table import Table
 from rich.text import Text
 
 from daemon.ui.palette import BAD, GOOD, INK, MUTED, margin_style
 from daemon.ui.widgets.base import StatusWidget, number
 
 MARGIN_BAR_CELLS = 10
+NAME_CELLS = 24
 STATE_MARKS = {
-    "armed": Text("● armed", GOOD),
-    "tripped": Text("✖ TRIPPED", f"bold {BAD}"),
-    "inactive": Text("○ off", MUTED),
+    "armed": ("● armed", GOOD),
+    "tripped": ("✖ TRIPPED", f"bold {BAD}"),
+    "inactive": ("○ off", MUTED),
 }
+HEADER = f"{'interlock':<{NAME_CELLS}}{'':<10}{'value':>8}{'limit':>8}{'margin':>9}  room"
 
 
 def margin_bar(margin: object, limit: object) -> Text:
     """Room left as a bar: full when the value is zero, empty at (or past) the limit."""
     if not isinstance(margin, int | float) or not isinstance(limit, int | float) or limit <= 0:
-        return Text("")
+        return Text(" " * MARGIN_BAR_CELLS)
     filled = round(max(0.0, min(1.0, margin / limit)) * MARGIN_BAR_CELLS)
     style = margin_style(margin, limit)
     return Text.assemble(("▰" * filled, style), ("▱" * (MARGIN_BAR_CELLS - filled), MUTED))
 
 
+def _tidy(value: object) -> object:
+    """Round away float dust (5e-324 m/s) that would print as noise in a 3-digit column."""
+    return 0.0 if isinstance(value, float) and abs(value) < 1e-9 else value
+
+
 class Interlocks(StatusWidget):
-    def render(self) -> Table:
-        table = Table(
-            expand=True, box=None, padding=(0, 1), header_style=f"bold {MUTED}", show_edge=False
-        )
-        table.add_column("interlock", style=INK, no_wrap=True)
-        table.add_column("", no_wrap=True)
-        table.add_column("value", justify="right", no_wrap=True)
-        table.add_column("limit", justify="right", style=MUTED, no_wrap=True)
-        table.add_column("margin", justify="right", no_wrap=True)
-        table.add_column("", no_wrap=True)
-        table.add_column("", style=MUTED, no_wrap=True)
+    def shown_part(self, status: dict) -> object:
+        return status.get("interlocks")
+
+    def render(self) -> Text:
+        text = Text(HEADER, style=f"bold {MUTED}", no_wrap=True, overflow="crop")
         for row in self.status.get("interlocks") or []:
             margin, limit = row.get("margin"), row.get("limit")
-            table.add_row(
-                str(row.get("name", "?")),
-                STATE_MARKS.get(row.get("state"), Text(str(row.get("state")))),
-                number(row.get("value"), ".3g"),
-                number(limit, ".3g"),
-                Text(number(margin, "+.3g"), margin_style(margin, limit)),
-                margin_bar(margin, limit),
-                str(row.get("unit", "")),
-            )
-        return table
+            mark, mark_style = STATE_MARKS.get(row.get("state"), (str(row.get("state")), INK))
+            text.append(f"\n{row.get('name', '?')!s:<{NAME_CELLS}}", INK)
+            text.append(f"{mark:<10}", mark_style)
+            text.append(f"{number(_tidy(row.get('value')), '.3g'):>8}", INK)
+            text.append(f"{number(limit, '.3g'):>8}", MUTED)
+            text.append(f"{number(margin, '+.3g'):>9}  ", margin_style(margin, limit))
+            text.append_text(margin_bar(margin, limit))
+            text.append(f" {row.get('unit', '')}", MUTED)
+        return text

@@ -10,6 +10,9 @@ from daemon.ui.widgets.base import StatusWidget
 
 
 class KeyBar(StatusWidget):
+    def shown_part(self, status: dict) -> object:
+        return (status.get("allowed"), (status.get("recording") or {}).get("active"))
+
     def render(self) -> Text:
         allowed = set(self.status.get("allowed") or []) if self.link.connected else set()
         text = Text(no_wrap=True, overflow="ellipsis")

@@ -2,38 +2,35 @@
 
 from __future__ import annotations
 
-from rich.table import Table
 from rich.text import Text
 
 from daemon.ui.palette import BAD, GOOD, INK, MUTED, WARN
-from daemon.ui.widgets.base import NO_VALUE, StatusWidget, number
+from daemon.ui.widgets.base import StatusWidget, key_value, number
 
 
 class LinkHealth(StatusWidget):
-    def render(self) -> Table:
+    def shown_part(self, status: dict) -> object:
+        return status.get("link")
+
+    def render(self) -> Text:
         link = self.status.get("link")
-        table = Table.grid(padding=(0, 1))
-        table.add_column(style=MUTED)
-        table.add_column(style=f"bold {INK}", justify="right")
-        table.add_column(style=MUTED)
+        text = Text(no_wrap=True, overflow="ellipsis")
         if not link:
-            table.add_row("rig link", Text(NO_VALUE, MUTED), "")
-            return table
+            key_value(text, "rig link", "—", MUTED)
+            return text
         up = link.get("connected")
-        table.add_row("rig link", Text("up", GOOD) if up else Text("DOWN", f"bold {BAD}"), "")
-        table.add_row("rate", number(link.get("rate_hz"), ".0f"), "Hz")
-        table.add_row(
-            "latency",
-            f"{number(link.get('latency_us_p50'), '.0f')} / {number(link.get('latency_us_p99'), '.0f')}",
-            "µs p50/p99",
+        key_value(text, "rig link", "up" if up else "DOWN", GOOD if up else f"bold {BAD}")
+        key_value(text, "rate", f"{number(link.get('rate_hz'), '.0f')} Hz")
+        p50, p99 = (
+            number(link.get("latency_us_p50"), ".0f"),
+            number(link.get("latency_us_p99"), ".0f"),
         )
+        key_value(text, "latency", f"{p50} / {p99} µs (p50/p99)")
         for key, label in (("gaps", "gaps"), ("crc_failures", "CRC fails")):
             count = link.get(key)
-            style = WARN if isinstance(count, int) and count > 0 else INK
-            table.add_row(label, Text(number(count, "d"), style), "")
-        table.add_row(
-            "frames",
-            f"{number(link.get('frames_rx'), 'd')} in",
-            f"{number(link.get('frames_tx'), 'd')} out",
-        )
-        return table
+            key_value(
+                text, label, number(count, ",d"), WARN if isinstance(count, int) and count else INK
+            )
+        rx, tx = number(link.get("frames_rx"), ",d"), number(link.get("frames_tx"), ",d")
+        key_value(text, "frames", f"{rx} in, {tx} out")
+        return text

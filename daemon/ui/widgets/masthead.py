@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-from rich.table import Table
 from rich.text import Text
 
 from daemon.ui.keys import ESTOP_KEY_LABEL
@@ -11,7 +10,10 @@ from daemon.ui.widgets.base import StatusWidget
 
 
 class Masthead(StatusWidget):
-    def render(self) -> Table:
+    def shown_part(self, status: dict) -> object:
+        return status.get("rig")
+
+    def render(self) -> Text:
         rig = self.status.get("rig") or {}
         title = Text.assemble(("◆ POISE ", f"bold {ACCENT}"))
         if rig:
@@ -22,9 +24,6 @@ class Masthead(StatusWidget):
         else:
             daemon = Text.assemble(("○ ", BAD), ("daemon unreachable", f"bold {BAD}"))
         estop = Text(f" {ESTOP_KEY_LABEL} ▸ E-STOP ", style=ESTOP_STYLE)
-        grid = Table.grid(expand=True)
-        grid.add_column(ratio=1)
-        grid.add_column(justify="right")
-        grid.add_column(justify="right")
-        grid.add_row(title, daemon, Text("  ").append_text(estop))
-        return grid
+        right = Text.assemble(daemon, "  ", estop)
+        gap = max(self.size.width - len(title) - len(right), 1)
+        return Text.assemble(title, " " * gap, right, no_wrap=True, overflow="crop")

@@ -2,29 +2,33 @@
 
 from __future__ import annotations
 
-from rich.table import Table
 from rich.text import Text
 
-from daemon.ui.palette import BAD, GOOD, INK, MUTED
-from daemon.ui.widgets.base import NO_VALUE, StatusWidget, number
+from daemon.ui.palette import BAD, GOOD, MUTED
+from daemon.ui.widgets.base import NO_VALUE, StatusWidget, key_value, number
 
 
 class Recording(StatusWidget):
-    def render(self) -> Table:
+    def shown_part(self, status: dict) -> object:
+        return status.get("recording")
+
+    def render(self) -> Text:
         rec = self.status.get("recording")
-        table = Table.grid(padding=(0, 1))
-        table.add_column(style=MUTED)
-        table.add_column(style=f"bold {INK}")
+        text = Text(no_wrap=True, overflow="ellipsis")
         if not rec:
-            table.add_row("recording", Text(NO_VALUE, MUTED))
-            return table
+            key_value(text, "recording", NO_VALUE, MUTED)
+            return text
         active = rec.get("active")
-        table.add_row("recording", Text("● REC", f"bold {BAD}") if active else Text("○ off", MUTED))
-        table.add_row("run", str(rec.get("run_id") or NO_VALUE))
-        table.add_row("samples", number(rec.get("samples"), ",d"))
-        dropped = rec.get("dropped")
-        table.add_row(
-            "dropped",
-            Text(number(dropped, ",d"), BAD if isinstance(dropped, int) and dropped else GOOD),
+        key_value(
+            text, "recording", "● REC" if active else "○ off", f"bold {BAD}" if active else MUTED
         )
-        return table
+        key_value(text, "run", str(rec.get("run_id") or NO_VALUE))
+        key_value(text, "samples", number(rec.get("samples"), ",d"))
+        dropped = rec.get("dropped")
+        key_value(
+            text,
+            "dropped",
+            number(dropped, ",d"),
+            BAD if isinstance(dropped, int) and dropped else GOOD,
+        )
+        return text

@@ -24,6 +24,10 @@ DEFAULT_TRACK_M = 1.0
 
 
 class RigView(StatusWidget):
+    def shown_part(self, status: dict) -> object:
+        keys = ("x_m", "theta_rad", "setpoint_m", "state", "rig")
+        return tuple(status.get(key) for key in keys)
+
     def render(self) -> Group:
         columns, rows = self.size.width, max(self.size.height - 1, 2)
         canvas = BrailleCanvas(columns, rows)

@@ -24,6 +24,9 @@ STATE_MEANINGS: dict[str, str] = {
 
 
 class StatePanel(StatusWidget):
+    def shown_part(self, status: dict) -> object:
+        return (status.get("state"), status.get("allowed"), status.get("faults"))
+
     def render(self) -> Group:
         if not self.link.connected:
             return self._unreachable()

@@ -2,8 +2,8 @@
 
 The history is taken from the status stream (keyed by the daemon's own ``t_s``),
 so the plots show what the daemon saw, at the stream's rate. Each plot scales
-itself symmetrically about zero to its largest recent value, never below a
-minimum span, so small wobbles stay visible without a tiny one filling the plot.
+itself to its recent values, never below a minimum span, so small wobbles stay
+visible without a tiny one filling the plot.
 """
 
 from __future__ import annotations
@@ -12,12 +12,11 @@ import math
 from collections import deque
 from dataclasses import dataclass
 
-from rich.table import Table
 from rich.text import Text
 
 from daemon.ui.braille import BrailleCanvas
 from daemon.ui.palette import CART, GOOD, MUTED, POLE
-from daemon.ui.widgets.base import StatusWidget, number, wrap_deg
+from daemon.ui.widgets.base import NO_VALUE, StatusWidget, number, wrap_deg
 
 WINDOW_S = 10.0
 LABEL_CELLS = 14
@@ -29,13 +28,13 @@ class Trace:
     title: str
     unit: str
     colour: str
-    min_span: float  # the plot shows at least ±min_span
+    min_span: float  # the plot shows at least ±min_span about its centre
     spec: str  # number format of the latest value
-    wraps: bool = False  # values wrap round (angles): a jump of more than the span is not joined
+    turn: float | None = None  # values wrap round by this much (angles): plotted unwrapped
 
 
 TRACES = (
-    Trace("angle", "°", POLE, 5.0, "+.1f", wraps=True),
+    Trace("angle", "°", POLE, 5.0, "+.1f", turn=360.0),
     Trace("position", "m", CART, 0.05, "+.3f"),
     Trace("drive", "", GOOD, 1.0, "+.2f"),
 )
@@ -50,29 +49,62 @@ def sample_of(status: dict) -> tuple[float, float, float, float] | None:
     return (t_s, wrap_deg(theta), x_m, drive)
 
 
-def plot(values: list[tuple[float, float]], t_end_s: float, columns: int, rows: int, trace: Trace):
-    """Braille plot of (t_s, value) over [t_end_s - WINDOW_S, t_end_s]; returns (text, span)."""
+def unwrap(values: list[float], turn: float) -> list[float]:
+    """Remove jumps of more than half a turn, so a pendulum hanging at ±180° plots as a flat line."""
+    out: list[float] = []
+    offset = 0.0
+    for index, value in enumerate(values):
+        if index:
+            step = value - values[index - 1]
+            offset -= turn * round(step / turn)
+        out.append(value + offset)
+    return out
+
+
+def plot_range(values: list[float], trace: Trace) -> tuple[float, float, float]:
+    """(low, high, guide): the shown range and the value of its dotted guide line.
+
+    Plain traces are centred on zero (the guide); wrapping ones on their recent
+    values, with the guide at the nearest half turn (upright or hanging).
+    """
+    if trace.turn is None:
+        half = max([abs(v) for v in values] + [trace.min_span])
+        return -half, half, 0.0
+    if not values:
+        return -trace.min_span, trace.min_span, 0.0
+    centre = (max(values) + min(values)) / 2.0
+    half = max((max(values) - min(values)) / 2.0, trace.min_span)
+    guide = round(centre / (trace.turn / 2.0)) * trace.turn / 2.0
+    return centre - half, centre + half, guide
+
+
+def plot(
+    points: list[tuple[float, float]], t_end_s: float, columns: int, rows: int, trace: Trace
+) -> tuple[Text, float, float]:
+    """Braille plot of (t_s, value) over [t_end_s - WINDOW_S, t_end_s]; returns (text, low, high)."""
     canvas = BrailleCanvas(columns, rows)
-    zero, line = canvas.layer(MUTED), canvas.layer(trace.colour)
-    span = max([abs(v) for _, v in values] + [trace.min_span])
-    mid_y = (canvas.height - 1) / 2.0
-    for x in range(0, canvas.width, 4):
-        canvas.dot(zero, x, mid_y)
+    guide_layer, line = canvas.layer(MUTED), canvas.layer(trace.colour)
+    values = [value for _, value in points]
+    if trace.turn is not None:
+        values = unwrap(values, trace.turn)
+    low, high, guide = plot_range(values, trace)
+    bottom = canvas.height - 1
 
-    def point(t_s: float, value: float) -> tuple[float, float]:
-        x = (canvas.width - 1) * (1.0 - (t_end_s - t_s) / WINDOW_S)
-        return x, mid_y - value / span * mid_y
+    def y_of(value: float) -> float:
+        return bottom - (value - low) / (high - low) * bottom
 
+    if low <= guide <= high:
+        for x in range(0, canvas.width, 4):
+            canvas.dot(guide_layer, x, y_of(guide))
     previous = None
-    previous_value = 0.0
-    for t_s, value in values:
-        here = point(t_s, value)
-        if previous is None or (trace.wraps and abs(value - previous_value) > span):
+    for (t_s, _), value in zip(points, values, strict=True):
+        here = ((canvas.width - 1) * (1.0 - (t_end_s - t_s) / WINDOW_S), y_of(value))
+        if previous is None:
             canvas.dot(line, *here)
         else:
             canvas.line(line, *previous, *here)
-        previous, previous_value = here, value
-    return canvas.to_text(), span
+        previous = here
+    return canvas.to_text(), low, high
 
 
 class Traces(StatusWidget):
@@ -81,7 +113,11 @@ class Traces(StatusWidget):
         self.drive_unit = drive_unit
         self.history: deque[tuple[float, float, float, float]] = deque(maxlen=MAX_POINTS)
 
+    def shown_part(self, status: dict) -> object:
+        return sample_of(status)
+
     def watch_status(self, status: dict) -> None:
+        super().watch_status(status)
         sample = sample_of(status)
         if sample is None:
             return
@@ -91,22 +127,25 @@ class Traces(StatusWidget):
         while self.history and self.history[0][0] < sample[0] - WINDOW_S:
             self.history.popleft()
 
-    def render(self) -> Table:
+    def render(self) -> Text:
         rows_each = max(self.size.height // len(TRACES), 1)
         columns = max(self.size.width - LABEL_CELLS - 1, 4)
         t_end = self.history[-1][0] if self.history else 0.0
-        table = Table.grid(padding=(0, 1, 0, 0))
-        table.add_column(width=LABEL_CELLS)
-        table.add_column()
+        text = Text(no_wrap=True, overflow="crop")
         for index, trace in enumerate(TRACES):
             unit = trace.unit or self.drive_unit
             values = [(sample[0], sample[index + 1]) for sample in self.history]
-            text, span = plot(values, t_end, columns, rows_each, trace)
-            latest = number(values[-1][1], trace.spec) if values else "—"
-            label = Text.assemble(
-                (f"{trace.title}\n", f"bold {trace.colour}"),
-                (f"{latest} {unit}\n", "bold"),
-                (f"±{span:.3g} {unit}", MUTED),
-            )
-            table.add_row(label, text)
-        return table
+            plot_text, low, high = plot(values, t_end, columns, rows_each, trace)
+            latest = number(values[-1][1], trace.spec) if values else NO_VALUE
+            labels = [
+                (trace.title, f"bold {trace.colour}"),
+                (f"{latest} {unit}", "bold"),
+                (f"{low:+.3g}…{high:+.3g}", MUTED),
+            ]
+            for row, line in enumerate(plot_text.split("\n")):
+                if text:
+                    text.append("\n")
+                label, style = labels[row] if row < len(labels) else ("", "")
+                text.append(f"{label:<{LABEL_CELLS}} ", style)
+                text.append_text(line)
+        return text
