@@ -94,8 +94,16 @@ def _number(option: str, text: str, low: float = -math.inf, high: float = math.i
         value = float(text)
     except ValueError:
         raise OperatorError(f"{option}: {text!r} is not a number") from None
-    if not (math.isfinite(value) and low <= value <= high):
-        raise OperatorError(f"{option}: {text!r} must be between {low:g} and {high:g}")
+    if not math.isfinite(value):
+        raise OperatorError(f"{option}: {text!r} is not a finite number")
+    if not low <= value <= high:
+        if high == math.inf:
+            allowed = f">= {low:g}"
+        elif low == -math.inf:
+            allowed = f"<= {high:g}"
+        else:
+            allowed = f"between {low:g} and {high:g}"
+        raise OperatorError(f"{option}: {text!r} must be {allowed}")
     return value
 
 
