@@ -63,7 +63,12 @@ class SwingUpSettings(Section):
     law: Literal["energy", "pump"] = "energy"
     max_accel_mps2: float = Field(default=4.0, gt=0.0, le=100.0)
     energy_gain: float = Field(
-        default=20.0, gt=0.0, le=1e4, description="cart accel in g per unit of energy error / (2 m g l)"
+        default=20.0, gt=0.0, le=1e4,
+        description="cart accel in g per unit of energy error / (2 m g l) at a rate w cos th of w0",
+    )
+    upright_rate_dps: float = Field(
+        default=20.0, ge=0.0, le=360.0,
+        description="energy target: the rate the pendulum passes upright with (just above the upright energy)",
     )
     position_gain_per_s2: float = Field(default=8.0, ge=0.0, le=1e4)
     velocity_gain_per_s: float = Field(default=4.0, ge=0.0, le=1e4)
@@ -84,7 +89,13 @@ class CatchSettings(Section):
     """
 
     angle_deg: float = Field(default=12.0, gt=0.0, le=60.0, description="switch to balance inside this")
-    rate_dps: float = Field(default=60.0, gt=0.0, le=5000.0)
+    rate_dps: float = Field(
+        default=60.0, gt=0.0, le=5000.0,
+        description="rate limit, relative to the upright-energy approach w = -w0 theta with follow_approach",
+    )
+    follow_approach: bool = Field(
+        default=True, description="centre the rate limit on the approach of a pendulum with the upright energy"
+    )
     fall_angle_deg: float = Field(default=30.0, gt=0.0, le=90.0, description="balance lost outside this")
     retries: int = Field(default=2, ge=0, le=20)
 

@@ -8,7 +8,7 @@ from dataclasses import dataclass
 from daemon.config import PoiseConfig
 from daemon.config.plant import plant_params
 from daemon.control.balance import BalanceController, BalanceDesign, design_balance
-from daemon.control.catch import CatchWindow
+from daemon.control.catch import CatchWindow, natural_frequency_radps
 from daemon.control.encoders import EncoderScaling
 from daemon.control.estimation import StateEstimator
 from daemon.control.kalman import design_kalman
@@ -80,7 +80,7 @@ def build_control_set(
         estimator=estimator,
         balance=BalanceController(design, config.balance.blend_samples),
         swing_up=swing,
-        window=CatchWindow(config.catch),
+        window=CatchWindow(config.catch, natural_frequency_radps(params)),
         soft_limit_m=soft,
         dt_s=dt,
     )

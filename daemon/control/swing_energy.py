@@ -6,21 +6,46 @@ Furuta, "Swinging up a pendulum by energy control", Automatica 36(2), 2000)::
     E = 1/2 J w^2 + m g l (cos th - 1)          (0 upright at rest, -2 m g l hanging)
     dE/dt = m l a cos(th) w - b_p w^2           (a: cart acceleration)
 
-so a cart acceleration with the sign of ``w cos th`` pumps energy in. The
+so a cart acceleration with the sign of ``c = w cos th`` pumps energy in. The
 commanded acceleration here is::
 
-    a = sat_amax( k g (E0 - E)/(2 m g l) sign(w cos th)  -  k_x x  -  k_v v )
+    e = (E_ref - E) / (2 m g l)
+    a = sat_amax( sat_ap( k (g / w0) e c )  -  k_x x  -  k_v v )      (w0 = sqrt(m g l / J))
 
-The first term is Åström-Furuta's law (``sign(0)`` taken as +1 so a pendulum
-at rest gets a first push); the pure law needs several equivalent pendulum
-lengths of cart travel, so the cart position and velocity feedback (M. W.
-Spong, "Energy based control of a class of underactuated mechanical systems",
-IFAC World Congress 1996; R. Lozano, I. Fantoni, D. J. Block, "Stabilization
-of the inverted pendulum around its homoclinic orbit", Systems & Control
-Letters 40(3), 2000) pulls the cart back toward the centre, and
-:class:`TrackGuard` makes sure the cart can always stop inside
-``track_use_fraction`` of the soft limits. The acceleration becomes a drive
-command through :class:`AccelerationDrive` (inverse plant model).
+The pumping term is Åström-Furuta's law ``k e c`` saturated at the pumping
+acceleration ``a_p``: bang-bang while the error is large, proportional near
+the target, where the energy settles instead of chattering around it. What
+makes it work on a short track:
+
+- ``a_p`` is sized by the travel. The pumping term is at most a square wave
+  of ``±a_p`` at the swing frequency (``<= w0``), which moves the cart by
+  ``(4 / pi) a_p / w^2``; ``a_p = (pi / 4) w0^2 d``, ``d`` half the travel
+  limit, keeps that inside the track. The cart position and velocity feedback
+  (M. W. Spong, "Energy based control of a class of underactuated mechanical
+  systems", IFAC World Congress 1996; R. Lozano, I. Fantoni, D. J. Block,
+  "Stabilization of the inverted pendulum around its homoclinic orbit",
+  Systems & Control Letters 40(3), 2000) pulls the cart back toward the
+  centre, and :class:`TrackGuard` makes sure the cart can always stop inside
+  the travel limit. A half swing of amplitude ``A`` (below horizontal) then
+  gains ``dE = m l a_p integral |w cos th| dt = 2 m l a_p sin A``, so the
+  amplitude grows by ``dE / (m g l sin A) = 2 a_p / g`` rad every half swing:
+  monotonic, and independent of the amplitude.
+- While the swing is small (``e > _SMALL_SWING_ERROR``) the pumping term is the
+  pure bang-bang law with the sign of ``c`` switched with hysteresis: the
+  velocity estimate of a pendulum near rest is mostly noise, and ``sign(0) =
+  +1`` gives the first push from rest.
+- The reference ``E_ref`` is the target ``E_t = 1/2 J w_t^2`` (``w_t``:
+  ``swing_up.upright_rate_dps``), just above the homoclinic orbit ``E = 0``,
+  plus what pivot friction will still take before the pendulum reaches
+  upright. Along the homoclinic orbit ``w = 2 w0 sin(phi / 2)`` (``phi`` the
+  angle from upright), so that loss, ``b_p integral w^2 dt = b_p integral w
+  dphi``, is ``4 b_p w0 (1 - cos(phi / 2))`` while rising and ``4 b_p w0 (1 +
+  cos(phi / 2))`` while falling away (down, then up the other side). The
+  pendulum then arrives with ``E_t``: it creeps up to upright and passes it
+  at ``w_t``, slowly enough to be caught, instead of turning back short of it.
+
+The acceleration becomes a drive command through :class:`AccelerationDrive`
+(inverse plant model).
 """
 
 from __future__ import annotations
@@ -29,10 +54,16 @@ import math
 
 from daemon.config.control import SwingUpSettings
 from daemon.control.drive_model import AccelerationDrive, clamp
+from daemon.control.encoders import wrap_angle
 from daemon.control.track_guard import TrackGuard
 from sim_device.plant import PlantParams
 
-__all__ = ["EnergySwingUp", "energy_pumping_accel"]
+__all__ = ["EnergySwingUp", "energy_pumping_accel", "pumping_accel_limit"]
+
+# Below this energy error (swing amplitude above about 30 degrees) the pumping term is proportional.
+_SMALL_SWING_ERROR = 0.93
+# The sign of w cos th changes only once it is past this share of w0 (noise near rest).
+_SIGN_HYSTERESIS_W0 = 0.1
 
 
 def energy_pumping_accel(energy_error: float, omega: float, cos_th: float, gain: float) -> float:
@@ -40,19 +71,30 @@ def energy_pumping_accel(energy_error: float, omega: float, cos_th: float, gain:
     return gain * energy_error if omega * cos_th >= 0.0 else -gain * energy_error
 
 
+def pumping_accel_limit(params: PlantParams, travel_limit_m: float, max_accel_mps2: float) -> float:
+    """``a_p``: the square wave of pumping acceleration at ``w0`` moves the cart ``±travel/2``."""
+    w0_sq = params.pendulum_mass_kg * params.com_distance_m * params.gravity_mps2 / params.pivot_inertia_kgm2
+    return min(max_accel_mps2, 0.25 * math.pi * w0_sq * 0.5 * travel_limit_m)
+
+
 class EnergySwingUp:
     """Per-sample energy swing-up: ``update(x, v, theta, omega) -> drive`` (volts or newtons)."""
 
     __slots__ = (
         "_a_max",
+        "_a_pump",
+        "_direction",
         "_drive",
         "_gain",
         "_guard",
         "_half_jp",
+        "_hysteresis",
         "_inv_2mgl",
         "_kv",
         "_kx",
+        "_loss_scale",
         "_mgl",
+        "_target",
         "last_accel",
         "last_drive",
     )
@@ -60,13 +102,21 @@ class EnergySwingUp:
     def __init__(self, params: PlantParams, settings: SwingUpSettings, travel_limit_m: float):
         self._drive = AccelerationDrive(params)
         self._a_max = settings.max_accel_mps2
+        self._a_pump = pumping_accel_limit(params, travel_limit_m, settings.max_accel_mps2)
         self._guard = TrackGuard(travel_limit_m, 0.8 * settings.max_accel_mps2)
-        self._gain = settings.energy_gain * params.gravity_mps2
+        ml = params.pendulum_mass_kg * params.com_distance_m
+        jp = params.pivot_inertia_kgm2
+        self._mgl = ml * params.gravity_mps2
+        w0 = math.sqrt(self._mgl / jp)
+        self._gain = settings.energy_gain * params.gravity_mps2 / w0
         self._kx = settings.position_gain_per_s2
         self._kv = settings.velocity_gain_per_s
-        self._half_jp = 0.5 * params.pivot_inertia_kgm2
-        self._mgl = params.pendulum_mass_kg * params.com_distance_m * params.gravity_mps2
+        self._half_jp = 0.5 * jp
         self._inv_2mgl = 1.0 / (2.0 * self._mgl)
+        self._loss_scale = 4.0 * params.pivot_viscous_nms_per_rad * w0
+        self._hysteresis = _SIGN_HYSTERESIS_W0 * w0
+        self._target = 0.5 * jp * math.radians(settings.upright_rate_dps) ** 2
+        self._direction = 1.0
         self.last_drive = 0.0
         self.last_accel = 0.0
 
@@ -74,14 +124,35 @@ class EnergySwingUp:
         """``E`` of the module docstring, joules (0 upright at rest)."""
         return self._half_jp * omega * omega + self._mgl * (math.cos(theta) - 1.0)
 
+    @property
+    def target_energy_j(self) -> float:
+        return self._target
+
+    def reference_energy(self, theta: float, omega: float) -> float:
+        """``E_t`` plus what pivot friction will take on the way to upright (module docstring)."""
+        half = 0.5 * wrap_angle(theta)
+        rising = half * omega < 0.0
+        return self._target + self._loss_scale * (1.0 - math.cos(half) if rising else 1.0 + math.cos(half))
+
     def reset(self, state: tuple[float, float, float, float], last_drive: float) -> None:
-        """Nothing to initialise: the law is static; kept for the common controller shape."""
+        """Start from the measured state: the first push (if at rest) goes toward ``+x``."""
+        self._direction = 1.0
         self.last_drive = last_drive
 
     def accel_command(self, x: float, v: float, theta: float, omega: float) -> float:
         cos_th = math.cos(theta)
-        error = -self.energy(theta, omega) * self._inv_2mgl
-        a = energy_pumping_accel(error, omega, cos_th, self._gain) - self._kx * x - self._kv * v
+        c = omega * cos_th
+        error = (self.reference_energy(theta, omega) - self.energy(theta, omega)) * self._inv_2mgl
+        if c > self._hysteresis:
+            self._direction = 1.0
+        elif c < -self._hysteresis:
+            self._direction = -1.0
+        a_pump = self._a_pump
+        if error > _SMALL_SWING_ERROR:
+            a = self._direction * a_pump
+        else:
+            a = clamp(self._gain * error * c, a_pump)
+        a -= self._kx * x + self._kv * v
         return self._guard.limit(clamp(a, self._a_max), x, v)
 
     def update(self, x: float, v: float, theta: float, omega: float) -> float:

@@ -73,8 +73,11 @@ _CROSSING_HYSTERESIS_RAD = math.radians(2.0)
 _HALF_PI = 0.5 * math.pi
 # Energy errors below this share of 2 m g l are trimmed by the energy law, not by moves.
 _TRIM_SHARE = 0.1
+# Whether to trim is decided only where the pendulum is this high (cos th above this).
+_TRIM_DECIDE_COS = 0.5
+_TRIM_DECIDE_SPEED_MPS = 0.1
 # Energy-law gain while trimming: at most 0.2 g of cart acceleration at the trim band's edge.
-_TRIM_ENERGY_GAIN = 2.0
+_TRIM_ENERGY_GAIN = 20.0
 
 
 class PumpSwingUp:
@@ -105,6 +108,7 @@ class PumpSwingUp:
         "_travel_pending",
         "_trim",
         "_trim_j",
+        "_trimming",
         "_wc2",
         "amplitude_rad",
         "half_period_s",
@@ -154,6 +158,8 @@ class PumpSwingUp:
         self._moved_this_half = False
         self.amplitude_rad = abs(self._last_p)
         self._peak = 0.0
+        self._trimming = False
+        self._trim.reset(state, last_drive)
         self.last_drive = last_drive
         self.switches = 0
 
@@ -238,13 +244,15 @@ class PumpSwingUp:
         energy = self.energy(theta, omega)
         self._track_swing(p)
         self._track_move(x, energy)
-        error = -energy
-        if not -self._band_below < energy < self._band_above and self._due(p, omega, energy):
-            outward = 1.0 if p >= 0.0 else -1.0
-            self._switch(-outward if error > 0.0 else outward, energy)
-        if -energy < self._trim_j and math.cos(theta) > 0.0:
+        # the energy estimate is good only high up; a move still braking would add to the energy
+        if math.cos(theta) > _TRIM_DECIDE_COS and -_TRIM_DECIDE_SPEED_MPS < v < _TRIM_DECIDE_SPEED_MPS:
+            self._trimming = energy > -(2.0 if self._trimming else 1.0) * self._trim_j
+        if self._trimming:
             a = self._trim.accel_command(x, v, theta, omega)
         else:
+            if not -self._band_below < energy < self._band_above and self._due(p, omega, energy):
+                outward = 1.0 if p >= 0.0 else -1.0
+                self._switch(-outward if energy < 0.0 else outward, energy)
             a = self._guard.limit(clamp(self._wc2 * (self._set_point - x) - self._2wc * v, self._a_max), x, v)
         drive = self._drive.command_for(a, v, math.sin(theta), math.cos(theta), omega)
         self.last_drive = drive
