@@ -82,7 +82,7 @@ from sim_device.faults import (
     StuckSwitch,
 )
 from sim_device.plant import Plant, applied_command
-from sim_device.sensors import Sensors, wrap_i32
+from sim_device.sensors import Sensors
 from sim_device.transports import Transport
 
 __all__ = ["FIRMWARE_VERSION", "SAMPLE_RATE_RANGE_HZ", "DeviceIdentity", "SimulatedDevice"]
@@ -144,9 +144,11 @@ class SimulatedDevice:
         self.sim_time_us = 0
         self.estop_pressed = False
         self.stuck_switches = 0
-        self.cart_glitch_counts = 0
-        self.pendulum_glitch_counts = 0
         self.resets = 0
+        self._jittery = sensors.jittery
+        self._chattering = schedule.chattering
+        self._base_status = ST_WATCHDOG_ACTIVE | (ST_LOCKSTEP if clock.lockstep else 0)
+
         self._power_up()
 
     # -- life cycle ----------------------------------------------------------------
@@ -330,7 +332,9 @@ class SimulatedDevice:
             self._nominal_next_us = self.t_us
         else:
             self._nominal_next_us += self._period_us
-            sample_us = self._nominal_next_us + self.sensors.sample_offset_us(self._period_us)
+            sample_us = self._nominal_next_us
+            if self._jittery:
+                sample_us += self.sensors.sample_offset_us(self._period_us)
             dt_us = sample_us - self.t_us
         if dt_us > 0:
             self.plant.step(self.drive_output, dt_us * 1e-6)
@@ -355,27 +359,27 @@ class SimulatedDevice:
         plant = self.plant
         x_m, _v, theta_rad, _w = plant.state
         cart, pendulum = self.sensors.encoder_counts(x_m, theta_rad)
+        switches = self.stuck_switches
         neg, pos = plant.limit_switches
-        switches = (SW_LIMIT_NEG if neg else 0) | (SW_LIMIT_POS if pos else 0)
-        switches = (switches | self.stuck_switches) ^ self.schedule.chatter()
+        if neg:
+            switches |= SW_LIMIT_NEG
+        if pos:
+            switches |= SW_LIMIT_POS
+        if self._chattering:
+            switches ^= self.schedule.chatter()
         if plant.end_stop_touched:
             switches |= SW_END_STOP
         if self.estop_pressed:
             switches |= SW_ESTOP_BUTTON
-        status = ST_WATCHDOG_ACTIVE
-        if self.armed:
-            status |= ST_ARMED
-        if self.clock.lockstep:
-            status |= ST_LOCKSTEP
         return seal_frame(_TELEMETRY_BODY.pack(
             *_TELEMETRY_HEADER,
             seq,
             self.t_us,
-            wrap_i32(cart + self.cart_glitch_counts),
-            wrap_i32(pendulum + self.pendulum_glitch_counts),
+            cart,
+            pendulum,
             switches,
             self.faults,
-            status,
+            self._base_status | ST_ARMED if self.armed else self._base_status,
             self.drive_output,
             NAN,
             NAN,
@@ -393,10 +397,7 @@ class SimulatedDevice:
         elif isinstance(event, Reset):
             self.reset()
         elif isinstance(event, EncoderGlitch):
-            if event.encoder == "cart":
-                self.cart_glitch_counts += event.counts
-            else:
-                self.pendulum_glitch_counts += event.counts
+            self.sensors.glitch(event.encoder, event.counts)
         elif isinstance(event, StuckSwitch):
             self.stuck_switches |= _SWITCH_BITS[event.side]
         elif isinstance(event, DriverFault):

@@ -132,6 +132,9 @@ def derived_seed(seed: int, stream: str) -> int:
     return random.Random(f"{seed}:{stream}").getrandbits(64)
 
 
+_NOTHING_DUE: list[FaultEvent] = []  # never appended to
+
+
 @dataclass(order=True)
 class _Entry:
     at_us: int
@@ -161,7 +164,7 @@ class FaultSchedule:
         """The events whose time has come, in time order (ties in the order they were added)."""
         heap = self._heap
         if not heap or heap[0].at_us > sim_time_us:
-            return []
+            return _NOTHING_DUE
         events = []
         while heap and heap[0].at_us <= sim_time_us:
             events.append(heapq.heappop(heap).event)
@@ -170,6 +173,10 @@ class FaultSchedule:
     @property
     def pending(self) -> int:
         return len(self._heap)
+
+    @property
+    def chattering(self) -> bool:
+        return self._noisy_bit != 0 and self._noisy_rate > 0.0
 
     def chatter(self) -> int:
         """Switch bits to invert in this sample's reading (0 when nothing chatters)."""

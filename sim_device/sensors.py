@@ -52,6 +52,8 @@ class SensorParams:
 
 def wrap_i32(value: int) -> int:
     """``value`` as a signed 32-bit counter would hold it."""
+    if -0x8000_0000 <= value <= 0x7FFF_FFFF:
+        return value
     return (value + 0x8000_0000) % 0x1_0000_0000 - 0x8000_0000
 
 
@@ -61,8 +63,23 @@ class Sensors:
     def __init__(self, params: SensorParams, seed: int = 0):
         self.params = params
         self._rng = random.Random(seed)
+        self.cart_offset_counts = 0
+        self.pendulum_offset_counts = 0
         self._cart_noise_m = params.cart_noise_counts / params.cart_counts_per_m
         self._pendulum_noise_rad = params.pendulum_noise_counts * TWO_PI / params.pendulum_counts_per_rev
+
+    def glitch(self, encoder: str, counts: int) -> None:
+        """The ``"cart"`` or ``"pendulum"`` encoder miscounts by ``counts`` and stays off by that much."""
+        if encoder == "cart":
+            self.cart_offset_counts += counts
+        elif encoder == "pendulum":
+            self.pendulum_offset_counts += counts
+        else:
+            raise ValueError(f"encoder must be 'cart' or 'pendulum' (got {encoder!r})")
+
+    @property
+    def jittery(self) -> bool:
+        return self.params.jitter_us > 0.0
 
     def encoder_counts(self, x_m: float, theta_rad: float) -> tuple[int, int]:
         """``(cart_counts, pendulum_counts)`` for the true cart position and pendulum angle.
@@ -76,8 +93,8 @@ class Sensors:
             theta_rad += self._rng.gauss(0.0, self._pendulum_noise_rad)
         params = self.params
         return (
-            wrap_i32(cart_counts(x_m, params.cart_counts_per_m)),
-            wrap_i32(pendulum_counts(theta_rad, params.pendulum_counts_per_rev)),
+            wrap_i32(cart_counts(x_m, params.cart_counts_per_m) + self.cart_offset_counts),
+            wrap_i32(pendulum_counts(theta_rad, params.pendulum_counts_per_rev) + self.pendulum_offset_counts),
         )
 
     def sample_offset_us(self, period_us: int) -> int:
