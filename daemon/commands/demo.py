@@ -49,7 +49,8 @@ def run(args: argparse.Namespace) -> int:
     print(
         f"poise demo: starting the simulated rig {config.rig.id} and its daemon (log: {log_path})"
     )
-    return asyncio.run(_demo(config, config_path, log_path))
+    with open(log_path, "wb") as log:
+        return asyncio.run(_demo(config, config_path, log, log_path))
 
 
 def _headless(config: str | None) -> int:
