@@ -173,7 +173,7 @@ async def test_lockstep_takes_one_sample_per_command_then_free_runs_when_the_hos
         clock.command_received()
     assert samples == [0] * 5  # the first sample at start, then one per command
     await asyncio.wait_for(three_more, 10.0)  # nobody commands: the wall clock paces it
-    assert samples[5:] == [1, 1, 1]
+    assert len(samples) >= 8 and set(samples[5:]) == {1}  # one free-running spell
     clock.stop()
     taken = len(samples)
     clock.command_received()
