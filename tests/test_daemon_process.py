@@ -15,6 +15,7 @@ and a device watchdog several times the demo rig's.
 from __future__ import annotations
 
 import asyncio
+import contextlib
 import json
 import os
 import signal
@@ -57,6 +58,21 @@ async def start_daemon(config, pty_path: str, socket_path: str):
         _out, err = await daemon.communicate()
         raise AssertionError(f"daemon did not start: {err.decode()[-2000:]}") from None
     return daemon, client
+
+
+@contextlib.asynccontextmanager
+async def sim_and_daemon(config, socket_path: str):
+    """The simulator and the daemon as subprocesses; both are gone when the block ends, however."""
+    sim, pty_path = await start_sim(config)
+    daemon = None
+    try:
+        daemon, client = await start_daemon(config, pty_path, socket_path)
+        yield pty_path, daemon, client
+    finally:
+        if daemon is not None and daemon.returncode is None:
+            daemon.kill()
+            await daemon.wait()
+        await stop(sim)
 
 
 async def stop(process: asyncio.subprocess.Process) -> None:
@@ -116,9 +132,7 @@ def read_pty_frames(path: str, seconds: float) -> list:
 async def test_kill_9_of_the_daemon_while_balancing_leaves_the_drive_off_within_the_watchdog(tmp_path):
     config = write_rig_config(tmp_path, extra=EXTRA, edits=EDITS)
     socket_path = str(tmp_path / "poise.sock")
-    sim, pty_path = await start_sim(config)
-    try:
-        daemon, client = await start_daemon(config, pty_path, socket_path)
+    async with sim_and_daemon(config, socket_path) as (pty_path, daemon, client):
         await ready(client)
         await swing_up(client)
         await asyncio.sleep(0.5)  # let it balance for a moment of real time
@@ -126,8 +140,6 @@ async def test_kill_9_of_the_daemon_while_balancing_leaves_the_drive_off_within_
         daemon.kill()
         await daemon.wait()
         frames = await asyncio.to_thread(read_pty_frames, pty_path, 1.0)
-    finally:
-        await stop(sim)
     reports = [m for m in frames if type(m) is FaultReport and m.faults & F_WATCHDOG]
     assert reports, "the simulator never reported its watchdog"
     period_ms = 1000.0 / 500
@@ -141,9 +153,7 @@ async def test_kill_9_of_the_daemon_while_balancing_leaves_the_drive_off_within_
 async def test_hostile_api_clients_do_not_disturb_a_holding_rig(tmp_path):
     config = write_rig_config(tmp_path, extra=EXTRA, edits=EDITS)
     socket_path = str(tmp_path / "poise.sock")
-    sim, pty_path = await start_sim(config)
-    try:
-        daemon, client = await start_daemon(config, pty_path, socket_path)
+    async with sim_and_daemon(config, socket_path) as (_pty_path, daemon, client):
         await ready(client)
         before = await client.request("status")
 
@@ -178,8 +188,6 @@ async def test_hostile_api_clients_do_not_disturb_a_holding_rig(tmp_path):
         await client.close()
         await stop(daemon)
         assert daemon.returncode == 0
-    finally:
-        await stop(sim)
     assert after["state"] == "READY" and after["faults"] == [], after["faults"]
     # The cycle kept answering telemetry all along (how many frames it answered rather than
     # stepped over depends on the machine's load, so only "it kept going" is checked here).

@@ -230,7 +230,6 @@ class ControlCycle:
             rate_trip = self.monitor.note_counters(t_s, stats.gaps, corrupt)
             if rate_trip is not None:
                 self.supervisor.trip(rate_trip, t_s)
-                trip = trip or rate_trip
                 self._on_trip(rate_trip, t_s)
         if m.state is not self._state or m.output is not self._output:
             self.sync()
