@@ -201,8 +201,13 @@ class PoiseDash(App[None]):
         except ApiError as exc:
             notice.show(str(exc), "error")
             return False
-        change = f"{result['previous']} → {result['state']}" if "state" in result else "done"
-        notice.show(f"{command}: {change}", "ok")
+        if args and "x_m" in args:
+            done = f"set-point {args['x_m']:+.3f} m"
+        elif result.get("state", result.get("previous")) != result.get("previous"):
+            done = f"{command}: {result['previous']} → {result['state']}"
+        else:
+            done = f"{command}: done"
+        notice.show(done, "ok")
         return True
 
     async def _send_estop(self) -> None:

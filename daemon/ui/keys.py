@@ -39,7 +39,7 @@ OPERATOR_KEYS: tuple[OperatorKey, ...] = (
         "u",
         "u",
         "swing_up",
-        "swing up",
+        "swing",
         "The cart shuttles along the track to pump the pendulum up, then balances it.",
     ),
     OperatorKey(
@@ -50,7 +50,7 @@ OPERATOR_KEYS: tuple[OperatorKey, ...] = (
         "The controller catches the pendulum where it is (held near upright) and balances it.",
     ),
     OperatorKey("s", "s", "stop", "stop"),
-    OperatorKey("c", "c", "reset", "clear latch"),
+    OperatorKey("c", "c", "reset", "clear"),
 )
 
 KEYS_BY_COMMAND = {key.command: key for key in OPERATOR_KEYS}

@@ -26,11 +26,6 @@ def margin_bar(margin: object, limit: object) -> Text:
     return Text.assemble(("▰" * filled, style), ("▱" * (MARGIN_BAR_CELLS - filled), MUTED))
 
 
-def _tidy(value: object) -> object:
-    """Round away float dust (5e-324 m/s) that would print as noise in a 3-digit column."""
-    return 0.0 if isinstance(value, float) and abs(value) < 1e-9 else value
-
-
 class Interlocks(StatusWidget):
     def shown_part(self, status: dict) -> object:
         return status.get("interlocks")
@@ -42,9 +37,9 @@ class Interlocks(StatusWidget):
             mark, mark_style = STATE_MARKS.get(row.get("state"), (str(row.get("state")), INK))
             text.append(f"\n{row.get('name', '?')!s:<{NAME_CELLS}}", INK)
             text.append(f"{mark:<10}", mark_style)
-            text.append(f"{number(_tidy(row.get('value')), '.3g'):>8}", INK)
-            text.append(f"{number(limit, '.3g'):>8}", MUTED)
-            text.append(f"{number(margin, '+.3g'):>9}  ", margin_style(margin, limit))
+            text.append(f"{number(row.get('value'), '.3f'):>8}", INK)
+            text.append(f"{number(limit, '.3f'):>8}", MUTED)
+            text.append(f"{number(margin, '+.3f'):>9}  ", margin_style(margin, limit))
             text.append_text(margin_bar(margin, limit))
             text.append(f" {row.get('unit', '')}", MUTED)
         return text

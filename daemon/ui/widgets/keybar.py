@@ -20,10 +20,10 @@ class KeyBar(StatusWidget):
         text.append("  ")
         for key in OPERATOR_KEYS:
             self._key(text, key.label, key.title, key.command in allowed)
-        self._key(text, "←→", "set-point", "setpoint" in allowed)
+        self._key(text, "←→", "nudge", "setpoint" in allowed)
         self._key(text, "0", "centre", "setpoint" in allowed)
         recording = (self.status.get("recording") or {}).get("active")
-        self._key(text, "r", "stop rec" if recording else "record", self.link.connected)
+        self._key(text, "r", "end rec" if recording else "rec", self.link.connected)
         self._key(text, "q", "quit", True)
         return text
 
@@ -32,4 +32,4 @@ class KeyBar(StatusWidget):
         text.append(
             f" {label} ", style=f"bold {INK} on #3a3f4f" if enabled else f"{MUTED} on #23262f"
         )
-        text.append(f"{title}  ", style=INK if enabled else MUTED)
+        text.append(f" {title} ", style=INK if enabled else MUTED)

@@ -25,7 +25,7 @@ class Masthead(StatusWidget):
             daemon = Text.assemble(("○ ", BAD), ("daemon unreachable", f"bold {BAD}"))
         estop = Text(f" {ESTOP_KEY_LABEL} ▸ E-STOP ", style=ESTOP_STYLE)
         # The e-stop key is never crowded out: the daemon's address gives way first.
-        room = self.size.width - len(title) - len(estop) - 3
+        room = self.size.width - len(title) - len(estop) - 4
         daemon.truncate(max(room, 0), overflow="ellipsis")
-        gap = max(self.size.width - len(title) - len(daemon) - len(estop), 1)
-        return Text.assemble(title, " " * gap, daemon, estop, no_wrap=True, overflow="crop")
+        gap = max(self.size.width - len(title) - len(daemon) - len(estop) - 2, 1)
+        return Text.assemble(title, " " * gap, daemon, "  ", estop, no_wrap=True, overflow="crop")

@@ -5,8 +5,8 @@ from __future__ import annotations
 from rich.console import Group
 from rich.text import Text
 
-from daemon.ui.keys import ESTOP_KEY_LABEL, KEYS_BY_COMMAND
-from daemon.ui.palette import BAD, ESTOP_STYLE, INK, MUTED, state_style
+from daemon.ui.keys import KEYS_BY_COMMAND
+from daemon.ui.palette import BAD, INK, MUTED, state_style
 from daemon.ui.widgets.base import StatusWidget
 
 STATE_MEANINGS: dict[str, str] = {
@@ -64,6 +64,6 @@ class StatePanel(StatusWidget):
         if "setpoint" in allowed:
             text.append(" ←→ ", style="bold reverse")
             text.append(" set-point  ")
-        text.append(f" {ESTOP_KEY_LABEL} ", style=ESTOP_STYLE)
-        text.append(" e-stop")
+        if not allowed or allowed == ["estop"]:
+            text.append("nothing but the e-stop", MUTED)
         return text
