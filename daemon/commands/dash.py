@@ -1,0 +1,34 @@
+"""`poise dash`: the terminal dashboard, a client of a running daemon's control API.
+
+Quitting the dashboard leaves the daemon running (it keeps its own state and
+watchdogs); quitting while the rig moves sends a controlled stop first.
+"""
+
+from __future__ import annotations
+
+import argparse
+
+NAME = "dash"
+HELP = "terminal dashboard for a running daemon (live state, plots, interlocks, keys)"
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument(
+        "--socket", metavar="PATH", help="control socket (default: api.socket_path of the config)"
+    )
+    parser.add_argument("--config", metavar="FILE", help="rig config TOML (default: the demo rig)")
+
+
+def drive_unit(drive_kind: str) -> str:
+    """The unit the drive command is shown in: volts or newtons, as the rig's drive."""
+    return "V" if drive_kind == "voltage" else "N"
+
+
+def run(args: argparse.Namespace) -> int:
+    from daemon.config import demo_config_path, load_config
+    from daemon.ui.app import PoiseDash
+
+    config = load_config(args.config or demo_config_path())
+    socket_path = args.socket or config.api.socket_path
+    PoiseDash(socket_path, drive_unit=drive_unit(config.drive.kind)).run()
+    return 0
