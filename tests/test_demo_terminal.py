@@ -75,18 +75,28 @@ def wait_for_file(path: Path) -> str:
     pytest.fail(f"{path.name} was never written: the demo did not exit")
 
 
-def test_poise_demo_starts_draws_answers_keys_and_quits_cleanly(tmp_path):
+def demo_command(tmp_path: Path) -> str:
     config = write_rig_config(tmp_path)  # control socket and run store inside tmp_path
-    exit_file = tmp_path / "exit-status"
-    command = (
-        # tmux puts COLUMNS/LINES in the pane's environment, which Textual would read in
-        # preference to the terminal's own size: leave them out so the pane's size is used.
+    # tmux puts COLUMNS/LINES in the pane's environment, which Textual would read in
+    # preference to the terminal's own size: leave them out so the pane's size is used.
+    return (
         f"cd {REPO} && env -u COLUMNS -u LINES {sys.executable} -m daemon.cli demo "
-        f"--config {config}; "
-        f"echo $? > {exit_file}; sleep 600"
+        f"--config {config}"
     )
+
+
+def recorded_run(tmp_path: Path):
+    conn = open_for_reading(str(tmp_path / "runs.db"))
+    try:
+        return get_run(conn, 1, str(tmp_path / "runs.db"))
+    finally:
+        conn.close()
+
+
+def test_poise_demo_starts_draws_answers_keys_and_quits_cleanly(tmp_path):
+    exit_file = tmp_path / "exit-status"
     terminal = Terminal(tmp_path)
-    terminal.start(command)
+    terminal.start(f"{demo_command(tmp_path)}; echo $? > {exit_file}; sleep 600")
     try:
         screen = terminal.wait_for("rig link   up")
         assert "◆ POISE  kestrel-1" in screen
@@ -106,10 +116,22 @@ def test_poise_demo_starts_draws_answers_keys_and_quits_cleanly(tmp_path):
     finally:
         terminal.close()
     assert not (tmp_path / "poise.sock").exists()  # the daemon closed its control socket
-    conn = open_for_reading(str(tmp_path / "runs.db"))
-    try:
-        run = get_run(conn, 1, str(tmp_path / "runs.db"))
-    finally:
-        conn.close()
+    run = recorded_run(tmp_path)
     assert run.samples_written > 0
     assert run.outcome == "completed"  # ended by the daemon's clean shutdown, not recovered
+
+
+def test_closing_the_terminal_under_the_demo_shuts_its_daemon_down_cleanly(tmp_path):
+    terminal = Terminal(tmp_path)
+    terminal.start(demo_command(tmp_path))
+    try:
+        terminal.wait_for("rig link   up")
+    finally:
+        terminal.close()  # the pane's processes get SIGHUP, as when a terminal window closes
+    deadline = time.monotonic() + WAIT_LIMIT_S
+    while (tmp_path / "poise.sock").exists() and time.monotonic() < deadline:
+        time.sleep(POLL_S)
+    assert not (tmp_path / "poise.sock").exists(), "the daemon outlived the demo's terminal"
+    while recorded_run(tmp_path).outcome is None and time.monotonic() < deadline:
+        time.sleep(POLL_S)
+    assert recorded_run(tmp_path).outcome == "completed"

@@ -64,6 +64,8 @@ def _headless(config: str | None) -> int:
 
 async def _demo(config, config_path: Path, log: BinaryIO, log_path: Path) -> int:
     import asyncio
+    import os
+    import signal
     import subprocess
     import sys
 
@@ -79,6 +81,23 @@ async def _demo(config, config_path: Path, log: BinaryIO, log_path: Path) -> int
         start_new_session=True,  # the terminal's signals go to the dashboard, not the daemon
     )
     app = PoiseDash(socket_path, drive_unit=drive_unit(config.drive.kind))
+    loop = asyncio.get_running_loop()
+
+    # The daemon is in its own session, so the terminal closing (SIGHUP) or a plain kill
+    # (SIGTERM) of the demo does not reach it: pass it on at once (the daemon makes its own
+    # controlled stop). After SIGTERM the dashboard ends as after `q`; after SIGHUP there is
+    # no terminal left to restore, so the demo leaves once the daemon has finished.
+    def terminated() -> None:
+        if daemon.returncode is None:
+            daemon.terminate()
+        app.exit()
+
+    async def hung_up() -> None:
+        status = await _shut_down(daemon)
+        os._exit(0 if status == 0 else 1)
+
+    loop.add_signal_handler(signal.SIGTERM, terminated)
+    loop.add_signal_handler(signal.SIGHUP, lambda: loop.create_task(hung_up()))
     try:
         await _wait_until_serving(daemon, socket_path, log_path)
         await app.run_async()
