@@ -152,6 +152,28 @@ def test_pumping_measures_the_pendulum_period_online(path):
 
 
 @pytest.mark.parametrize("path", RIGS)
+@pytest.mark.parametrize("friction_allowed_for", [True, False])
+def test_energy_reference_brings_the_pendulum_to_upright_at_the_target_rate(path, friction_allowed_for):
+    # A pendulum leaving the bottom with the reference energy, cart held and no more control, must reach
+    # upright still moving at about swing_up.upright_rate_dps despite pivot friction; with the bare target
+    # energy (friction not allowed for) it turns back short of upright.
+    config = load_config(path)
+    params = plant_params(config)
+    law = EnergySwingUp(params, config.swing_up, travel_limit_m=0.1)
+    bottom = math.pi + 1e-9  # just past hanging, rising toward upright through negative angles
+    energy = law.reference_energy(bottom, 1.0) if friction_allowed_for else law.target_energy_j
+    mgl = params.pendulum_mass_kg * params.com_distance_m * G
+    plant = Plant(params, (0.0, 0.0, bottom, math.sqrt(2 * (energy + 2 * mgl) / params.pivot_inertia_kgm2)), 1)
+    plant.hold_cart(True)
+    while plant.state[3] > 0.0 and wrap_angle(plant.state[2]) < 0.0:
+        plant.step(0.0, 1e-4)
+    reached = wrap_angle(plant.state[2]) >= 0.0
+    assert reached is friction_allowed_for
+    if reached:
+        assert math.degrees(plant.state[3]) == pytest.approx(config.swing_up.upright_rate_dps, rel=0.25)
+
+
+@pytest.mark.parametrize("path", RIGS)
 def test_energy_swing_up_keeps_the_cart_inside_its_travel_limit(path):
     config = load_config(path)
     cs = build_control_set(config, "energy")

@@ -82,7 +82,9 @@ class SwingUpSettings(Section):
 class CatchSettings(Section):
     """Window around upright where balance takes over, and the larger one where it has lost the pendulum.
 
-    Every corner of the window (angle and rate, either sign) must be a state the
+    With ``follow_approach`` the rate limit is centred on the approach of a
+    pendulum with exactly the upright energy (``w = -w0 theta``), see
+    daemon/control/catch.py. Every corner of the window must be a state the
     saturated LQR recovers from without the cart reaching the soft limits; on a
     short track the cart travel, not the drive, sets that edge. The defaults
     suit Kestrel-1 (checked by tests/test_control_closed_loop.py).
