@@ -41,6 +41,7 @@ from protocol.messages import (
     CAP_ESTOP_BUTTON,
     CAP_LIMIT_SWITCHES,
     CAP_SIMULATED,
+    CAP_SUPPLY_VOLTAGE,
     DRIVE_KIND_NEWTONS,
     DRIVE_KIND_VOLTS,
     F_DRIVER,
@@ -72,6 +73,7 @@ from protocol.messages import (
 )
 from sim_device.clocks import SampleClock
 from sim_device.faults import (
+    CartEncoderDead,
     DriverFault,
     EncoderGlitch,
     FaultEvent,
@@ -80,6 +82,7 @@ from sim_device.faults import (
     Reset,
     Stall,
     StuckSwitch,
+    SupplySag,
 )
 from sim_device.plant import Plant, applied_command
 from sim_device.sensors import Sensors
@@ -145,6 +148,8 @@ class SimulatedDevice:
         self.estop_pressed = False
         self.stuck_switches = 0
         self.resets = 0
+        supply_v = sensors.params.supply_v
+        self.supply_v = NAN if supply_v is None else supply_v  # as measured; NaN: not fitted
         self._jittery = sensors.jittery
         self._chattering = schedule.chattering
         self._base_status = ST_WATCHDOG_ACTIVE | (ST_LOCKSTEP if clock.lockstep else 0)
@@ -211,6 +216,8 @@ class SimulatedDevice:
             capabilities |= CAP_LIMIT_SWITCHES
         if self.identity.has_estop_button:
             capabilities |= CAP_ESTOP_BUTTON
+        if sensors.supply_v is not None:
+            capabilities |= CAP_SUPPLY_VOLTAGE
         kind = DRIVE_KIND_VOLTS if params.drive.kind == "voltage" else DRIVE_KIND_NEWTONS
         return (
             PROTOCOL_VERSION,
@@ -382,7 +389,7 @@ class SimulatedDevice:
             self._base_status | ST_ARMED if self.armed else self._base_status,
             self.drive_output,
             NAN,
-            NAN,
+            self.supply_v,
             self.late_commands,
         ))
 
@@ -402,6 +409,10 @@ class SimulatedDevice:
             self.stuck_switches |= _SWITCH_BITS[event.side]
         elif isinstance(event, DriverFault):
             self._latch_fault(F_DRIVER, NAN)
+        elif isinstance(event, CartEncoderDead):
+            self.sensors.stop_cart_counting(self.plant.state[0])
+        elif isinstance(event, SupplySag):
+            self.supply_v = event.supply_v
         else:
             raise TypeError(f"unknown fault event {event!r}")
 

@@ -28,6 +28,7 @@ from typing import Literal
 from sim_device.transports import OnBytes, Transport
 
 __all__ = [
+    "CartEncoderDead",
     "DriverFault",
     "EncoderGlitch",
     "FaultEvent",
@@ -38,6 +39,7 @@ __all__ = [
     "Reset",
     "Stall",
     "StuckSwitch",
+    "SupplySag",
 ]
 
 SwitchSide = Literal["neg", "pos"]
@@ -76,6 +78,18 @@ class DriverFault:
 
 
 @dataclass(frozen=True)
+class CartEncoderDead:
+    """The cart encoder stops counting (unplugged, or the belt it reads slipped): its count freezes."""
+
+
+@dataclass(frozen=True)
+class SupplySag:
+    """The supply voltage the device measures drops to ``supply_v``, short of the device's own lockout."""
+
+    supply_v: float
+
+
+@dataclass(frozen=True)
 class Impulse:
     """Horizontal impulses, N s (+x positive), at the pendulum's centre of mass and on the cart."""
 
@@ -83,7 +97,9 @@ class Impulse:
     cart_ns: float = 0.0
 
 
-FaultEvent = Stall | Reset | EncoderGlitch | StuckSwitch | DriverFault | Impulse
+FaultEvent = (
+    Stall | Reset | EncoderGlitch | StuckSwitch | DriverFault | Impulse | CartEncoderDead | SupplySag
+)
 
 
 def _check_rate(name: str, value: float) -> None:

@@ -37,6 +37,7 @@ class SensorParams:
     cart_noise_counts: float = 0.0
     pendulum_noise_counts: float = 0.0
     jitter_us: float = 0.0
+    supply_v: float | None = None  # the supply voltage the device measures; None: not fitted
 
     def __post_init__(self) -> None:
         if not self.cart_counts_per_m > 0.0:
@@ -48,6 +49,8 @@ class SensorParams:
         for name in ("cart_noise_counts", "pendulum_noise_counts", "jitter_us"):
             if not getattr(self, name) >= 0.0:
                 raise ValueError(f"sensors.{name} must be >= 0 (got {getattr(self, name)!r})")
+        if self.supply_v is not None and not (math.isfinite(self.supply_v) and self.supply_v > 0.0):
+            raise ValueError(f"sensors.supply_v must be > 0 (got {self.supply_v!r})")
 
 
 def wrap_i32(value: int) -> int:
@@ -65,6 +68,7 @@ class Sensors:
         self._rng = random.Random(seed)
         self.cart_offset_counts = 0
         self.pendulum_offset_counts = 0
+        self.cart_dead_at_m: float | None = None
         self._cart_noise_m = params.cart_noise_counts / params.cart_counts_per_m
         self._pendulum_noise_rad = params.pendulum_noise_counts * TWO_PI / params.pendulum_counts_per_rev
 
@@ -76,6 +80,10 @@ class Sensors:
             self.pendulum_offset_counts += counts
         else:
             raise ValueError(f"encoder must be 'cart' or 'pendulum' (got {encoder!r})")
+
+    def stop_cart_counting(self, x_m: float) -> None:
+        """The cart encoder stops counting (unplugged, or its belt slipped): it reads ``x_m`` from now on."""
+        self.cart_dead_at_m = x_m
 
     @property
     def jittery(self) -> bool:
@@ -91,6 +99,8 @@ class Sensors:
             x_m += self._rng.gauss(0.0, self._cart_noise_m)
         if self._pendulum_noise_rad:
             theta_rad += self._rng.gauss(0.0, self._pendulum_noise_rad)
+        if self.cart_dead_at_m is not None:
+            x_m = self.cart_dead_at_m
         params = self.params
         return (
             wrap_i32(cart_counts(x_m, params.cart_counts_per_m) + self.cart_offset_counts),

@@ -38,6 +38,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                          help="Gaussian noise on both encoders, standard deviation in counts")
     sensors.add_argument("--jitter-us", metavar="US", default="0",
                          help="sample-time jitter, standard deviation in microseconds")
+    sensors.add_argument("--supply-v", metavar="V",
+                         help="measure and report this supply voltage (default: not fitted)")
     faults = parser.add_argument_group("fault injection (times are simulated seconds since start)")
     faults.add_argument("--drop-rate", metavar="P", default="0", help="drop this fraction of sent frames")
     faults.add_argument("--corrupt-rate", metavar="P", default="0",
@@ -53,6 +55,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="this limit switch reads wrong in a fraction P of samples")
     faults.add_argument("--driver-fault-at", action="append", default=[], metavar="S",
                         help="the motor driver reports a fault at S (repeatable)")
+    faults.add_argument("--cart-encoder-dead-at", metavar="S",
+                        help="the cart encoder stops counting at S (unplugged, or its belt slipped)")
+    faults.add_argument("--supply-sag", action="append", default=[], metavar="AT_S:V",
+                        help="the measured supply voltage drops to V at AT_S (needs --supply-v; repeatable)")
     faults.add_argument("--impulse", action="append", default=[], metavar="AT_S:NS",
                         help="horizontal impulse (N s, +x positive) at the pendulum's centre of mass")
     faults.add_argument("--cart-impulse", action="append", default=[], metavar="AT_S:NS",
@@ -61,8 +67,15 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="start the pendulum at D degrees (0 upright, 180 hanging)")
 
 
-def rig_spec(config: PoiseConfig, encoder_noise_counts: float = 0.0, jitter_us: float = 0.0) -> RigSpec:
+def rig_spec(
+    config: PoiseConfig,
+    encoder_noise_counts: float = 0.0,
+    jitter_us: float = 0.0,
+    supply_v: float | None = None,
+) -> RigSpec:
     """The simulated rig a config describes (plant, encoders, hello identity), plus sensor imperfections.
+
+    ``supply_v`` fits a supply voltage measurement reading that voltage (None: not fitted).
 
     The daemon's built-in simulated rig uses this too, so ``poise sim`` and
     ``poise run --sim`` simulate the same rig.
@@ -80,6 +93,7 @@ def rig_spec(config: PoiseConfig, encoder_noise_counts: float = 0.0, jitter_us: 
             cart_noise_counts=encoder_noise_counts,
             pendulum_noise_counts=encoder_noise_counts,
             jitter_us=jitter_us,
+            supply_v=supply_v,
         ),
         identity=DeviceIdentity(
             device_id=config.rig.id,
@@ -128,6 +142,7 @@ def _count(option: str, text: str) -> int:
 def fault_plan(args: argparse.Namespace) -> FaultPlan:
     """The :class:`FaultPlan` the fault options describe; OperatorError names a malformed option."""
     from sim_device.faults import (
+        CartEncoderDead,
         DriverFault,
         EncoderGlitch,
         FaultPlan,
@@ -135,6 +150,7 @@ def fault_plan(args: argparse.Namespace) -> FaultPlan:
         Reset,
         Stall,
         StuckSwitch,
+        SupplySag,
     )
 
     events: list[tuple[float, FaultEvent]] = []
@@ -151,6 +167,15 @@ def fault_plan(args: argparse.Namespace) -> FaultPlan:
         events.append((_time("--glitch", parts[0]), EncoderGlitch(_count("--glitch", parts[1]), encoder)))
     for text in args.driver_fault_at:
         events.append((_time("--driver-fault-at", text), DriverFault()))
+    if args.cart_encoder_dead_at is not None:
+        events.append((_time("--cart-encoder-dead-at", args.cart_encoder_dead_at), CartEncoderDead()))
+    for text in args.supply_sag:
+        parts = _pair("--supply-sag", text, "AT_S:V")
+        if len(parts) != 2:
+            raise OperatorError(f"--supply-sag: expected AT_S:V, got {text!r}")
+        if args.supply_v is None:
+            raise OperatorError("--supply-sag: the rig measures no supply voltage (give --supply-v)")
+        events.append((_time("--supply-sag", parts[0]), SupplySag(_number("--supply-sag", parts[1], 0.0))))
     for option, texts, on_cart in (("--impulse", args.impulse, False), ("--cart-impulse", args.cart_impulse, True)):
         for text in texts:
             parts = _pair(option, text, "AT_S:NS")
@@ -192,6 +217,7 @@ def run(args: argparse.Namespace) -> int:
         config,
         encoder_noise_counts=_number("--encoder-noise-counts", args.encoder_noise_counts, 0.0, 1e6),
         jitter_us=_number("--jitter-us", args.jitter_us, 0.0, 1e6),
+        supply_v=None if args.supply_v is None else _number("--supply-v", args.supply_v, 0.1, 1000.0),
     )
     plan = fault_plan(args)
     if args.tcp is not None and not 0 <= args.tcp <= 65535:

@@ -20,11 +20,15 @@ from sim_device.transports import PtyTransport
 
 @dataclass(frozen=True)
 class SimOptions:
-    """How to run the built-in rig: lockstep (deterministic, fast) or real time, and its faults."""
+    """How to run the built-in rig: lockstep (deterministic, fast) or real time, and its faults.
+
+    ``supply_v`` fits the rig with a supply voltage measurement reading that voltage.
+    """
 
     lockstep: bool = False
     seed: int = 0
     faults: FaultPlan = field(default_factory=FaultPlan)
+    supply_v: float | None = None
 
 
 def start_embedded_rig(
@@ -32,7 +36,7 @@ def start_embedded_rig(
 ) -> SimulatedRig:
     """Start the simulated rig on a fresh pty in ``loop``; connect to ``rig.where``."""
     rig = SimulatedRig(
-        rig_spec(config),
+        rig_spec(config, supply_v=options.supply_v),
         PtyTransport(),
         lockstep=options.lockstep,
         seed=options.seed,
