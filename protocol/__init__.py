@@ -6,8 +6,8 @@ This package depends on nothing else in the repository.
 
 from protocol.cobs_codec import CobsError, cobs_decode, cobs_encode
 from protocol.crc import crc16
-from protocol.decoder import FrameDecoder
-from protocol.encoder import encode, encode_drive, seal_frame
+from protocol.decoder import FrameDecoder, RejectedFrame
+from protocol.encoder import encode, encode_drive, encode_telemetry, seal_frame
 from protocol.handshake import HandshakeError, check_device_hello, hello_mismatch
 from protocol.layout import (
     FLAGS_MAY_IGNORE_MASK,
@@ -69,8 +69,8 @@ __all__ = [
     "SCHEMA_FINGERPRINT", "ST_ARMED", "ST_LOCKSTEP", "ST_WATCHDOG_ACTIVE", "SW_END_STOP",
     "SW_ESTOP_BUTTON", "SW_LIMIT_NEG", "SW_LIMIT_POS",
     "Arm", "ClearFaults", "CobsError", "Configure", "DeviceHello", "Drive", "FaultReport",
-    "FrameDecoder", "HandshakeError", "Heartbeat", "Identify", "LinkStats", "Message", "Reply",
-    "ReplyResult", "RetryDue", "RetryTracker", "Stop", "Telemetry",
+    "FrameDecoder", "HandshakeError", "Heartbeat", "Identify", "LinkStats", "Message",
+    "RejectedFrame", "Reply", "ReplyResult", "RetryDue", "RetryTracker", "Stop", "Telemetry",
     "check_device_hello", "cobs_decode", "cobs_encode", "crc16", "encode", "encode_drive",
-    "hello_mismatch", "seal_frame",
+    "encode_telemetry", "hello_mismatch", "seal_frame",
 ]

@@ -1,6 +1,8 @@
 """Incremental frame decoder: bytes in, typed messages out; never raises on any byte input."""
 
 from binascii import crc_hqx
+from collections.abc import Callable
+from typing import NamedTuple
 
 from cobs import cobs as _cobs
 
@@ -12,7 +14,6 @@ from protocol.layout import (
     LAYOUTS_BY_TYPE_ID,
     MAX_ENCODED_FRAME_BYTES,
     MIN_FRAME_BYTES,
-    Layout,
 )
 from protocol.link_stats import LinkStats
 from protocol.messages import (
@@ -20,15 +21,39 @@ from protocol.messages import (
     SCHEMA_FINGERPRINT,
     DeviceHello,
     Message,
+    ReplyResult,
     Telemetry,
 )
 
 _UNKNOWN_FLAGS_MASK = FLAGS_MUST_UNDERSTAND_MASK & ~KNOWN_MUST_UNDERSTAND_FLAGS
-_TELEMETRY_TYPE_ID = Telemetry.TYPE_ID
 _HELLO_TYPE_ID = DeviceHello.TYPE_ID
 _HELLO_PREFIX_BYTES = HEADER_SIZE + 5  # header + protocol_version u8 + schema_fingerprint u32
 _cobs_decode = _cobs.decode
 _CobsDecodeError = _cobs.DecodeError
+_new_message = tuple.__new__  # builds a message (a named tuple) from struct.unpack's tuple
+
+# type id -> (frame size, unpack of the whole frame to (seq, *fields), class, text positions)
+_FRAME_TYPES: dict[int, tuple[int, Callable[[bytes], tuple], type[Message], tuple[int, ...]]] = {
+    type_id: (layout.frame_size, layout.frame.unpack, layout.cls, layout.text_indexes)
+    for type_id, layout in LAYOUTS_BY_TYPE_ID.items()
+}
+
+
+class RejectedFrame(NamedTuple):
+    """A frame that passed the COBS, CRC, version and flags checks but was still refused.
+
+    Its header can be trusted, so a device answers it with ``Reply(for_type=type_id,
+    for_seq=seq, result=result)`` (PROTOCOL.md section 7): ``UNKNOWN_TYPE`` for a type this
+    side does not know, ``BAD_PAYLOAD`` for a known type with a payload of the wrong length
+    (or a text field that is not ASCII).
+    """
+
+    type_id: int
+    seq: int
+    result: ReplyResult
+
+
+OnRejected = Callable[[RejectedFrame], None]
 
 
 class FrameDecoder:
@@ -38,15 +63,20 @@ class FrameDecoder:
     :class:`LinkStats`, shared with the link if one is passed in) and described, with its stream
     byte offset, in ``counters.last_error`` and ``counters.errors``. The partial frame held
     between calls is bounded: past MAX_ENCODED_FRAME_BYTES the bytes are dropped, counted once
-    as oversize, and decoding resumes after the next delimiter.
+    as oversize, and decoding resumes after the next delimiter. Every chunk between delimiters
+    goes into ``counters.rx_frames`` (monotonic ns, the chunk as received, its size).
 
     Telemetry sequence numbers are checked: a jump forward of k > 1 counts one gap and k - 1
     lost frames; a telemetry seq 0 starts a new stream (the device restarts at 0 on Configure)
     and is not a gap; any other backwards jump counts one gap and no lost frames.
+
+    ``on_rejected``, if given, is also called with a :class:`RejectedFrame` for each
+    well-framed frame refused for its type or payload, after it has been counted.
     """
 
-    def __init__(self, counters: LinkStats | None = None) -> None:
+    def __init__(self, counters: LinkStats | None = None, on_rejected: OnRejected | None = None) -> None:
         self.counters = counters if counters is not None else LinkStats()
+        self.on_rejected = on_rejected
         self._pending = b""
         self._pending_offset = 0  # stream byte offset of the first byte of _pending
         self._discarding = False  # inside an oversize frame: drop up to the next delimiter
@@ -78,20 +108,23 @@ class FrameDecoder:
             data = self._pending + data
         chunks = data.split(b"\x00")
         tail = chunks.pop()
-        messages = []
+        messages: list[Message] = []
+        note_rx = counters.rx_frames.append
+        clock = counters.clock
         for chunk in chunks:
             size = len(chunk)
+            at = offset  # stream offset of this chunk, for error messages
+            offset += size + 1
             if self._discarding:
                 self._discarding = False  # the rest of an oversize frame, already counted
             elif size > MAX_ENCODED_FRAME_BYTES:
-                self._reject_oversize(chunk, offset)
+                self._reject_oversize(chunk, at)
             elif size:
-                counters.rx_frames.append((counters.clock(), chunk, size))
+                note_rx((clock(), chunk, size))
                 try:
                     raw = _cobs_decode(chunk)
                 except _CobsDecodeError as error:
-                    self._reject_cobs(error, offset)
-                    offset += size + 1
+                    self._reject_cobs(error, at)
                     continue
                 if (
                     len(raw) < MIN_FRAME_BYTES
@@ -99,24 +132,26 @@ class FrameDecoder:
                     or raw[0] != PROTOCOL_VERSION
                     or raw[1] & _UNKNOWN_FLAGS_MASK
                 ):
-                    self._reject_frame(raw, offset)
-                else:
-                    layout = LAYOUTS_BY_TYPE_ID.get(raw[2])
-                    if layout is None or len(raw) != layout.frame_size:
-                        self._reject_type_or_size(raw, offset)
-                    elif layout.type_id == _TELEMETRY_TYPE_ID:
-                        values = layout.frame.unpack(raw)
-                        seq = values[0]
-                        if seq != self._next_telemetry_seq:
-                            self._note_telemetry_jump(seq, offset)
-                        self._next_telemetry_seq = (seq + 1) & 0xFFFF
-                        counters.frames_rx += 1
-                        messages.append(layout.build(values))
-                    else:
-                        message = self._build_other(layout, raw, offset)
-                        if message is not None:
-                            messages.append(message)
-            offset += size + 1
+                    self._reject_frame(raw, at)
+                    continue
+                kind = _FRAME_TYPES.get(raw[2])
+                if kind is None or len(raw) != kind[0]:
+                    self._reject_type_or_size(raw, at)
+                    continue
+                _size, unpack, cls, text_indexes = kind
+                values = unpack(raw)
+                if cls is Telemetry:
+                    seq = values[0]
+                    if seq != self._next_telemetry_seq:
+                        self._note_telemetry_jump(seq, at)
+                    self._next_telemetry_seq = (seq + 1) & 0xFFFF
+                elif text_indexes:
+                    values = self._text_from_wire(values, text_indexes)
+                    if values is None:
+                        self._reject_text(raw, cls, at)
+                        continue
+                counters.frames_rx += 1
+                messages.append(_new_message(cls, values))
         if len(tail) > MAX_ENCODED_FRAME_BYTES:
             if not self._discarding:
                 self._reject_oversize(tail, offset)
@@ -126,17 +161,6 @@ class FrameDecoder:
         self._pending = tail
         self._pending_offset = offset
         return messages
-
-    def _build_other(self, layout: Layout, raw: bytes, offset: int) -> Message | None:
-        """Build a non-telemetry message from a checked frame of the right size."""
-        values = layout.frame.unpack(raw)
-        if layout.text_indexes:
-            values = self._text_from_wire(values, layout.text_indexes)
-            if values is None:
-                self.counters.malformed += 1
-                return self._reject(offset, f"{layout.cls.__name__} text field is not ASCII")
-        self.counters.frames_rx += 1
-        return layout.build(values)
 
     def _reject_cobs(self, error: Exception, offset: int) -> None:
         self.counters.cobs_errors += 1
@@ -169,14 +193,25 @@ class FrameDecoder:
         )
 
     def _reject_type_or_size(self, raw: bytes, offset: int) -> None:
-        layout = LAYOUTS_BY_TYPE_ID.get(raw[2])
-        if layout is None:
+        kind = _FRAME_TYPES.get(raw[2])
+        if kind is None:
             self.counters.unknown_type += 1
-            return self._reject(offset, f"unknown message type 0x{raw[2]:02X}")
+            self._reject(offset, f"unknown message type 0x{raw[2]:02X}")
+            self._tell_rejected(raw, ReplyResult.UNKNOWN_TYPE)
+            return
+        frame_size, _unpack, cls, _text = kind
         self.counters.malformed += 1
-        return self._reject(
-            offset, f"{layout.cls.__name__} frame is {len(raw)} bytes, expected {layout.frame_size}"
-        )
+        self._reject(offset, f"{cls.__name__} frame is {len(raw)} bytes, expected {frame_size}")
+        self._tell_rejected(raw, ReplyResult.BAD_PAYLOAD)
+
+    def _reject_text(self, raw: bytes, cls: type[Message], offset: int) -> None:
+        self.counters.malformed += 1
+        self._reject(offset, f"{cls.__name__} text field is not ASCII")
+        self._tell_rejected(raw, ReplyResult.BAD_PAYLOAD)
+
+    def _tell_rejected(self, raw: bytes, result: ReplyResult) -> None:
+        if self.on_rejected is not None:
+            self.on_rejected(RejectedFrame(raw[2], raw[3] | raw[4] << 8, result))
 
     def _note_telemetry_jump(self, seq: int, offset: int) -> None:
         expected = self._next_telemetry_seq

@@ -7,13 +7,15 @@ from cobs import cobs as _cobs
 
 from protocol.crc import CRC_INIT
 from protocol.layout import CRC, LAYOUTS_BY_CLASS, TEXT_CODE, Layout
-from protocol.messages import PROTOCOL_VERSION, Drive, Message
+from protocol.messages import PROTOCOL_VERSION, Drive, Message, Telemetry
 
 DELIMITER = b"\x00"
 TEXT_FIELD_BYTES = 16
 
 _DRIVE_BODY = LAYOUTS_BY_CLASS[Drive].body
 _DRIVE_TYPE_ID = Drive.TYPE_ID
+_TELEMETRY_BODY = LAYOUTS_BY_CLASS[Telemetry].body
+_TELEMETRY_TYPE_ID = Telemetry.TYPE_ID
 _crc_pack = CRC.pack
 _cobs_encode = _cobs.encode
 
@@ -32,6 +34,33 @@ def encode_drive(seq: int, drive: float, answers_seq: int) -> bytes:
     return _cobs_encode(body + _crc_pack(crc_hqx(body, CRC_INIT))) + DELIMITER
 
 
+def encode_telemetry(
+    seq: int,
+    t_us: int,
+    cart_counts: int,
+    pendulum_counts: int,
+    switches: int,
+    faults: int,
+    status: int,
+    drive_applied: float,
+    motor_current_a: float,
+    supply_v: float,
+    late_commands: int,
+) -> bytes:
+    """Fast path for the per-sample Telemetry frame; same bytes as ``encode(Telemetry(...))``."""
+    try:
+        body = _TELEMETRY_BODY.pack(
+            PROTOCOL_VERSION, 0, _TELEMETRY_TYPE_ID, seq, t_us, cart_counts, pendulum_counts,
+            switches, faults, status, drive_applied, motor_current_a, supply_v, late_commands,
+        )
+    except (struct.error, OverflowError):
+        return encode(Telemetry(  # raises the descriptive ValueError
+            seq, t_us, cart_counts, pendulum_counts, switches, faults, status, drive_applied,
+            motor_current_a, supply_v, late_commands,
+        ))
+    return _cobs_encode(body + _crc_pack(crc_hqx(body, CRC_INIT))) + DELIMITER
+
+
 def encode(message: Message) -> bytes:
     """Encode ``message`` as a whole frame including the trailing 0x00 delimiter.
 
@@ -40,7 +69,7 @@ def encode(message: Message) -> bytes:
     layout = LAYOUTS_BY_CLASS.get(type(message))
     if layout is None:
         raise TypeError(f"cannot encode {type(message).__name__}: not a protocol message")
-    values = [message.seq] + [getattr(message, name) for name in layout.field_names]
+    values = list(message)  # seq, then the payload fields in wire order
     for index in layout.text_indexes:
         values[index] = _text_to_wire(layout, index, values[index])
     try:

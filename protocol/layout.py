@@ -1,12 +1,11 @@
-"""Byte layout of frames: the header, per-type precompiled structs, and fast message builders.
+"""Byte layout of frames: the header and per-type precompiled structs.
 
 A frame before COBS is ``version u8 | flags u8 | type u8 | seq u16 | payload | crc u16``,
 all little-endian, the CRC-16/CCITT-FALSE covering every byte before it.
 """
 
 import struct
-from collections.abc import Callable
-from dataclasses import dataclass, fields, make_dataclass
+from dataclasses import dataclass
 
 from protocol.messages import ALL_MESSAGES, Message, payload_fields
 
@@ -27,28 +26,6 @@ KNOWN_MUST_UNDERSTAND_FLAGS = 0x00
 TEXT_CODE = "16s"
 
 
-def _fast_builder(cls: type[Message]) -> Callable[[tuple], Message]:
-    """Return a constructor from a tuple of field values for the frozen dataclass ``cls``, ~5x
-    faster than its ``__init__``.
-
-    A frozen dataclass's ``__init__`` assigns each field through ``object.__setattr__``, which
-    costs ~3 us for Telemetry's eleven fields, more than the whole per-sample budget. The builder
-    fills a field-for-field identical mutable slots class (plain fast attribute stores) and then
-    re-labels the instance as ``cls``; both classes have the same slots, so the object is a
-    genuine, immutable ``cls`` instance afterwards.
-    """
-    twin = make_dataclass(
-        f"_{cls.__name__}Builder", [(f.name, f.type) for f in fields(cls)], slots=True
-    )
-
-    def build(values: tuple) -> Message:
-        instance = twin(*values)
-        instance.__class__ = cls
-        return instance
-
-    return build
-
-
 @dataclass(frozen=True, slots=True)
 class Layout:
     """Everything needed to encode or decode one message type."""
@@ -61,7 +38,6 @@ class Layout:
     frame: struct.Struct  # whole decoded frame; unpacks to (seq, *payload fields)
     frame_size: int
     text_indexes: tuple[int, ...]  # positions in (seq, *fields) of NUL-padded ASCII fields
-    build: Callable[[tuple], Message]
 
 
 def _layout(cls: type[Message]) -> Layout:
@@ -77,7 +53,6 @@ def _layout(cls: type[Message]) -> Layout:
         frame=struct.Struct("<3xH" + codes + "2x"),
         frame_size=body.size + CRC_SIZE,
         text_indexes=tuple(1 + i for i, (_, code) in enumerate(pairs) if code == TEXT_CODE),
-        build=_fast_builder(cls),
     )
 
 

@@ -10,7 +10,7 @@ decoder disagrees, so the file never records a behaviour nobody chose.
 import argparse
 import json
 import math
-from dataclasses import dataclass, fields
+from dataclasses import dataclass
 from pathlib import Path
 
 from cobs import cobs as _cobs
@@ -94,7 +94,7 @@ def message_to_json(message: Message) -> dict[str, object]:
     """``{"type": name, "fields": {...}}`` with every field including seq."""
     return {
         "type": type(message).__name__,
-        "fields": {f.name: _json_value(getattr(message, f.name)) for f in fields(message)},
+        "fields": {name: _json_value(value) for name, value in zip(message._fields, message)},
     }
 
 
@@ -209,16 +209,11 @@ def malformed_cases() -> list[MalformedCase]:
         ),
         MalformedCase(
             "telemetry_gap", "Telemetry seq 65534, 65535, 0 (a wrap), 3: one gap of 2 lost frames",
-            b"".join(encode(_telemetry_with_seq(telemetry, s)) for s in (65534, 65535, 0, 3)),
-            tuple(_telemetry_with_seq(telemetry, s) for s in (65534, 65535, 0, 3)),
+            b"".join(encode(telemetry._replace(seq=s)) for s in (65534, 65535, 0, 3)),
+            tuple(telemetry._replace(seq=s) for s in (65534, 65535, 0, 3)),
             {"gaps": 1, "lost_frames": 2, "frames_rx": 4},
         ),
     ]
-
-
-def _telemetry_with_seq(telemetry: Telemetry, seq: int) -> Telemetry:
-    values = {f.name: getattr(telemetry, f.name) for f in fields(telemetry)}
-    return Telemetry(**(values | {"seq": seq}))
 
 
 def decoder_outcome(stream: bytes) -> tuple[list[Message], dict[str, int]]:

@@ -1,16 +1,21 @@
 """The message catalogue of the Poise wire protocol, version 1.
 
-One frozen dataclass per message type. Every class has ``seq`` (the frame header's sequence
-number) as its first field, a ``TYPE_ID`` and a ``WIRE`` string giving the ``struct`` code of
-each payload field in declaration order (little-endian, no padding). The byte layout, units and
-rules are specified in PROTOCOL.md; this module is the single source the codec and the schema
-fingerprint are built from.
+One immutable record class (a ``typing.NamedTuple``) per message type. Every class has ``seq``
+(the frame header's sequence number) as its first field, a ``TYPE_ID`` and a ``WIRE`` string
+giving the ``struct`` code of each payload field in declaration order (little-endian, no
+padding). The byte layout, units and rules are specified in PROTOCOL.md; this module is the
+single source the codec and the schema fingerprint are built from.
+
+Why named tuples: the decoder builds one message per telemetry frame, and a named tuple is made
+straight from ``struct.unpack``'s tuple (``tuple.__new__(cls, values)``) in a fraction of the
+microsecond a frozen dataclass's ``__init__`` takes. Equality is that of records, not of bare
+tuples: a message equals only a message of the same class with the same field values
+(:func:`_same_message`), so ``Stop(3) != ClearFaults(3)`` and ``Stop(3) != (3,)``.
 """
 
 import zlib
-from dataclasses import dataclass, fields
 from enum import IntEnum
-from typing import ClassVar
+from typing import NamedTuple
 
 PROTOCOL_VERSION = 1
 
@@ -55,15 +60,31 @@ class ReplyResult(IntEnum):
     FAULT_LATCHED = 5
 
 
+def _same_message(self: tuple, other: object) -> bool:
+    return type(other) is type(self) and tuple.__eq__(self, other)
+
+
+def _different_message(self: tuple, other: object) -> bool:
+    return not (type(other) is type(self) and tuple.__eq__(self, other))
+
+
+def _message(cls: type[tuple]) -> type[tuple]:
+    """Give a message class record equality (equal only to the same class); hashing stays the
+    tuple's, which agrees with it."""
+    cls.__eq__ = _same_message  # type: ignore[method-assign,assignment]
+    cls.__ne__ = _different_message  # type: ignore[method-assign,assignment]
+    return cls
+
+
 # ---- device -> host -------------------------------------------------------------------------
 
 
-@dataclass(frozen=True, slots=True)
-class DeviceHello:
+@_message
+class DeviceHello(NamedTuple):
     """The device's identity and geometry, sent in answer to Identify."""
 
-    TYPE_ID: ClassVar[int] = 0x01
-    WIRE: ClassVar[str] = "B I 16s B B B H f I f f B I"
+    TYPE_ID = 0x01
+    WIRE = "B I 16s B B B H f I f f B I"
     seq: int
     protocol_version: int
     schema_fingerprint: int
@@ -80,12 +101,12 @@ class DeviceHello:
     capabilities: int
 
 
-@dataclass(frozen=True, slots=True)
-class Telemetry:
+@_message
+class Telemetry(NamedTuple):
     """One sample; header seq is the sample index (wraps at 65536)."""
 
-    TYPE_ID: ClassVar[int] = 0x02
-    WIRE: ClassVar[str] = "Q i i B H B f f f H"
+    TYPE_ID = 0x02
+    WIRE = "Q i i B H B f f f H"
     seq: int
     t_us: int
     cart_counts: int
@@ -99,24 +120,24 @@ class Telemetry:
     late_commands: int  # wrapping count of Drive frames that arrived after their sample
 
 
-@dataclass(frozen=True, slots=True)
-class FaultReport:
+@_message
+class FaultReport(NamedTuple):
     """Sent when a fault flag becomes latched."""
 
-    TYPE_ID: ClassVar[int] = 0x03
-    WIRE: ClassVar[str] = "H H f"
+    TYPE_ID = 0x03
+    WIRE = "H H f"
     seq: int
     faults: int
     code: int
     detail: float
 
 
-@dataclass(frozen=True, slots=True)
-class Reply:
+@_message
+class Reply(NamedTuple):
     """The device's answer to an acknowledged host command."""
 
-    TYPE_ID: ClassVar[int] = 0x04
-    WIRE: ClassVar[str] = "B H B"
+    TYPE_ID = 0x04
+    WIRE = "B H B"
     seq: int
     for_type: int
     for_seq: int
@@ -126,71 +147,71 @@ class Reply:
 # ---- host -> device -------------------------------------------------------------------------
 
 
-@dataclass(frozen=True, slots=True)
-class Configure:
+@_message
+class Configure(NamedTuple):
     """Set the sample rate and watchdog timeout; (re)starts telemetry at seq 0."""
 
-    TYPE_ID: ClassVar[int] = 0x10
-    WIRE: ClassVar[str] = "H H"
+    TYPE_ID = 0x10
+    WIRE = "H H"
     seq: int
     sample_rate_hz: int
     watchdog_ms: int
 
 
-@dataclass(frozen=True, slots=True)
-class Arm:
+@_message
+class Arm(NamedTuple):
     """Arm (arm=1) or disarm (arm=0) the motor drive."""
 
-    TYPE_ID: ClassVar[int] = 0x11
-    WIRE: ClassVar[str] = "B"
+    TYPE_ID = 0x11
+    WIRE = "B"
     seq: int
     arm: int
 
 
-@dataclass(frozen=True, slots=True)
-class Drive:
+@_message
+class Drive(NamedTuple):
     """The drive command answering telemetry ``answers_seq`` (volts or newtons); latest wins."""
 
-    TYPE_ID: ClassVar[int] = 0x12
-    WIRE: ClassVar[str] = "f H"
+    TYPE_ID = 0x12
+    WIRE = "f H"
     seq: int
     drive: float
     answers_seq: int
 
 
-@dataclass(frozen=True, slots=True)
-class Heartbeat:
+@_message
+class Heartbeat(NamedTuple):
     """Keeps the device watchdog fed while the host sends no Drive."""
 
-    TYPE_ID: ClassVar[int] = 0x13
-    WIRE: ClassVar[str] = ""
+    TYPE_ID = 0x13
+    WIRE = ""
     seq: int
 
 
-@dataclass(frozen=True, slots=True)
-class Stop:
+@_message
+class Stop(NamedTuple):
     """Zero drive at once and disarm."""
 
-    TYPE_ID: ClassVar[int] = 0x14
-    WIRE: ClassVar[str] = ""
+    TYPE_ID = 0x14
+    WIRE = ""
     seq: int
 
 
-@dataclass(frozen=True, slots=True)
-class ClearFaults:
+@_message
+class ClearFaults(NamedTuple):
     """Clear latched fault flags whose cause is gone; never arms."""
 
-    TYPE_ID: ClassVar[int] = 0x15
-    WIRE: ClassVar[str] = ""
+    TYPE_ID = 0x15
+    WIRE = ""
     seq: int
 
 
-@dataclass(frozen=True, slots=True)
-class Identify:
+@_message
+class Identify(NamedTuple):
     """Ask the device for its DeviceHello."""
 
-    TYPE_ID: ClassVar[int] = 0x16
-    WIRE: ClassVar[str] = ""
+    TYPE_ID = 0x16
+    WIRE = ""
     seq: int
 
 
@@ -223,7 +244,7 @@ ACKED_TYPE_IDS: frozenset[int] = frozenset(cls.TYPE_ID for cls in ACKED_MESSAGES
 
 def payload_fields(cls: type[Message]) -> list[tuple[str, str]]:
     """(field name, struct code) of each payload field of ``cls``, in wire order."""
-    names = [f.name for f in fields(cls)][1:]  # the first field, seq, lives in the header
+    names = list(cls._fields[1:])  # the first field, seq, lives in the header
     codes = cls.WIRE.split()
     if len(names) != len(codes):
         raise TypeError(f"{cls.__name__}: {len(names)} payload fields but WIRE has {len(codes)}")

@@ -35,7 +35,8 @@ def _frames_with_valid_crc(stream: bytes) -> int:
 
 def test_random_streams_never_raise_and_the_frame_after_them_is_recovered():
     rng = random.Random(20240611)
-    decoder = FrameDecoder()
+    rejected = []
+    decoder = FrameDecoder(on_rejected=rejected.append)
     for case in range(CASES):
         length = rng.randrange(600) if case % 100 == 0 else rng.randrange(48)
         garbage = rng.randbytes(length)
@@ -51,6 +52,8 @@ def test_random_streams_never_raise_and_the_frame_after_them_is_recovered():
         assert decoder.pending_bytes == 0
     counters = decoder.counters
     assert min(counters.cobs_errors, counters.runts, counters.crc_failures, counters.oversize) > 0
+    # only well-framed refusals (counted as unknown type or malformed) reach on_rejected
+    assert len(rejected) == counters.unknown_type + counters.malformed
 
 
 def test_bit_flipped_frames_are_never_accepted_altered_and_never_hide_the_next_frame():

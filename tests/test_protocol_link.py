@@ -1,6 +1,5 @@
 """Link diagnostics, decoder error reports, the handshake check and acked-command retries."""
 
-import dataclasses
 import itertools
 
 import pytest
@@ -107,7 +106,7 @@ def test_matching_hello_passes_the_handshake_check():
     ids=["fingerprint", "version"],
 )
 def test_mismatched_hello_is_refused_naming_both_sides(changes):
-    hello = dataclasses.replace(HELLO, **changes)
+    hello = HELLO._replace(**changes)
     with pytest.raises(HandshakeError) as error:
         check_device_hello(hello)
     text = str(error.value)

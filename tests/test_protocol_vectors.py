@@ -7,7 +7,7 @@ from pathlib import Path
 
 import pytest
 
-from protocol import FrameDecoder, cobs_decode, crc16, encode
+from protocol import FrameDecoder, ReplyResult, cobs_decode, crc16, encode
 from protocol.layout import LAYOUTS_BY_CLASS
 from protocol.make_vectors import ERROR_COUNTERS, message_from_json, vectors_json
 from protocol.messages import MESSAGES_BY_TYPE_ID, SCHEMA_FINGERPRINT, schema_text
@@ -109,6 +109,24 @@ def test_malformed_vector_gives_the_stated_outcome_fed_in_halves(case):
     decoder = FrameDecoder()
     messages = decoder.feed(_halves(stream)[0]) + decoder.feed(_halves(stream)[1])
     _check_outcome(case, messages, decoder)
+
+
+@pytest.mark.parametrize("case", VECTORS["malformed"], ids=lambda c: c["name"])
+def test_only_well_framed_refusals_reach_on_rejected_with_their_header(case):
+    # PROTOCOL.md section 7: a well-framed frame of an unknown type is answered UNKNOWN_TYPE, of
+    # a wrong length BAD_PAYLOAD; frames failing COBS, CRC, version or flags checks are only
+    # counted (their header cannot be trusted). In every vector the refused frame comes first.
+    stream = bytes.fromhex(case["stream_hex"])
+    rejected = []
+    FrameDecoder(on_rejected=rejected.append).feed(stream)
+    counts = case["expected_counters"]
+    assert [r.result for r in rejected] == (
+        [ReplyResult.UNKNOWN_TYPE] * counts.get("unknown_type", 0)
+        + [ReplyResult.BAD_PAYLOAD] * counts.get("malformed", 0)
+    )
+    if rejected:
+        header = cobs_decode(stream.split(b"\x00")[0])
+        assert [(r.type_id, r.seq) for r in rejected] == [(header[2], int.from_bytes(header[3:5], "little"))]
 
 
 def test_vectors_header_matches_the_code():
