@@ -23,10 +23,10 @@ It follows protocol/PROTOCOL.md (sections 5-10) as a firmware author would:
 - A FaultReport is sent whenever a fault bit becomes latched.
 - Each type of message sent has its own sequence counter (Telemetry's is the
   sample index).
-
-Not implemented here: Reply UNKNOWN_TYPE / BAD_PAYLOAD for well-framed frames
-of an unknown type or wrong length, because the protocol decoder drops those
-without handing the device their type and seq (it counts them).
+- A well-framed frame (valid COBS, CRC, version and flags) of a type the
+  device does not know, or of a known type with a payload of the wrong length,
+  is answered with Reply UNKNOWN_TYPE or BAD_PAYLOAD for its type and seq
+  (section 7); so is a device-to-host message sent to the device (UNKNOWN_TYPE).
 """
 
 from __future__ import annotations
@@ -35,8 +35,7 @@ import asyncio
 import math
 from dataclasses import dataclass
 
-from protocol import FrameDecoder, encode, seal_frame
-from protocol.layout import LAYOUTS_BY_CLASS
+from protocol import FrameDecoder, RejectedFrame, encode, encode_telemetry
 from protocol.messages import (
     CAP_ESTOP_BUTTON,
     CAP_LIMIT_SWITCHES,
@@ -69,7 +68,6 @@ from protocol.messages import (
     Reply,
     ReplyResult,
     Stop,
-    Telemetry,
 )
 from sim_device.clocks import SampleClock
 from sim_device.faults import (
@@ -93,10 +91,6 @@ __all__ = ["FIRMWARE_VERSION", "SAMPLE_RATE_RANGE_HZ", "DeviceIdentity", "Simula
 FIRMWARE_VERSION = (1, 0, 0)
 SAMPLE_RATE_RANGE_HZ = (1, 10000)
 NAN = math.nan
-# Telemetry goes out every sample: pack it with the protocol's own precompiled
-# header+payload struct instead of building a message object first.
-_TELEMETRY_BODY = LAYOUTS_BY_CLASS[Telemetry].body
-_TELEMETRY_HEADER = (PROTOCOL_VERSION, 0, Telemetry.TYPE_ID)
 _SWITCH_BITS = {"neg": SW_LIMIT_NEG, "pos": SW_LIMIT_POS}
 
 
@@ -160,7 +154,7 @@ class SimulatedDevice:
 
     def _power_up(self) -> None:
         """The state after power-up or a reset (the plant and the encoders carry on)."""
-        self.decoder = FrameDecoder()
+        self.decoder = FrameDecoder(on_rejected=self._on_rejected)
         self.configured = False
         self.armed = False
         self.faults = F_RESET | (F_ESTOP if self.estop_pressed else 0)
@@ -237,7 +231,10 @@ class SimulatedDevice:
         return DeviceHello(self._next_seq(DeviceHello), *self._hello_fields)
 
     def _reply(self, command: Message, result: ReplyResult) -> None:
-        self._send(encode(Reply(self._next_seq(Reply), command.TYPE_ID, command.seq, int(result))))
+        self._answer(command.TYPE_ID, command.seq, result)
+
+    def _answer(self, for_type: int, for_seq: int, result: ReplyResult) -> None:
+        self._send(encode(Reply(self._next_seq(Reply), for_type, for_seq, int(result))))
 
     def _latch_fault(self, bit: int, detail: float) -> None:
         """Latch fault ``bit``, cut the drive at once, disarm, and report it."""
@@ -257,6 +254,10 @@ class SimulatedDevice:
                 self._on_drive(message)
             else:
                 self._on_command(message)
+
+    def _on_rejected(self, frame: RejectedFrame) -> None:
+        """A well-framed frame the decoder refused for its type or payload length."""
+        self._answer(frame.type_id, frame.seq, frame.result)
 
     def _on_drive(self, message: Drive) -> None:
         if not self.configured:
@@ -378,8 +379,7 @@ class SimulatedDevice:
             switches |= SW_END_STOP
         if self.estop_pressed:
             switches |= SW_ESTOP_BUTTON
-        return seal_frame(_TELEMETRY_BODY.pack(
-            *_TELEMETRY_HEADER,
+        return encode_telemetry(
             seq,
             self.t_us,
             cart,
@@ -391,7 +391,7 @@ class SimulatedDevice:
             NAN,
             self.supply_v,
             self.late_commands,
-        ))
+        )
 
     # -- faults and the operator's button ------------------------------------------
 

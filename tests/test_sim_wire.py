@@ -313,6 +313,34 @@ async def test_commands_refused_in_the_wrong_state(kind):
     assert while_armed.result == p.ReplyResult.NOT_NOW
 
 
+@pytest.mark.parametrize("kind", TRANSPORTS)
+async def test_well_framed_unknown_or_wrong_length_frames_are_answered_corrupt_ones_are_not(kind):
+    # PROTOCOL.md section 7: a well-framed host frame of an unknown type gets Reply UNKNOWN_TYPE,
+    # a known type with the wrong length BAD_PAYLOAD; a frame failing the CRC check is dropped
+    # silently (its seq cannot be trusted). A device-to-host type is unknown to the device.
+    def frame(type_id: int, seq: int, payload: bytes = b"") -> bytes:
+        return p.seal_frame(bytes([p.PROTOCOL_VERSION, 0, type_id]) + seq.to_bytes(2, "little") + payload)
+
+    bad_crc = bytearray(p.cobs_decode(frame(p.Stop.TYPE_ID, 8)[:-1]))
+    bad_crc[-1] ^= 0x01
+    async with connect(kind, lockstep=True) as (rig, host):
+        host.write(p.cobs_encode(bytes(bad_crc)) + b"\x00")
+        host.write(frame(0x7E, 0x1234))
+        host.write(frame(p.Arm.TYPE_ID, 9))  # Arm without its payload byte
+        host.write(frame(p.Stop.TYPE_ID, 10, b"\x00"))  # Stop with one byte too many
+        host.send(p.Reply(11, p.Arm.TYPE_ID, 9, p.ReplyResult.ACCEPTED))
+        await host.request(p.Identify(0), p.DeviceHello, lambda m: True)
+    replies = [(m.for_type, m.for_seq, m.result) for m in host.seen if type(m) is p.Reply]
+    assert replies == [
+        (0x7E, 0x1234, p.ReplyResult.UNKNOWN_TYPE),
+        (p.Arm.TYPE_ID, 9, p.ReplyResult.BAD_PAYLOAD),
+        (p.Stop.TYPE_ID, 10, p.ReplyResult.BAD_PAYLOAD),
+        (p.Reply.TYPE_ID, 11, p.ReplyResult.UNKNOWN_TYPE),
+    ]
+    counters = rig.device.decoder.counters
+    assert (counters.crc_failures, counters.unknown_type, counters.malformed) == (1, 1, 2)
+
+
 # ---- injected faults, each as the host sees it ------------------------------------------------
 
 
