@@ -8,61 +8,23 @@ frames each way, and an operator reset leaves the rig idle and disarmed.
 
 from __future__ import annotations
 
-import json
-
 import pytest
-from test_daemon_support import device_received, homed_and_ready, run_for, running_service, wait_for
+from test_daemon_support import (
+    check_drive_off_trip,
+    device_received,
+    homed_and_ready,
+    latched,
+    reset_to_idle,
+    run_for,
+    running_service,
+    stored_trips,
+    wait_for,
+)
 
 from daemon.errors import CommandRefused
-from daemon.recording.store import open_for_reading, run_events
 from daemon.supervisor import Output, State
-from protocol import Drive, Stop
+from protocol import Stop
 from sim_device.faults import DriverFault, FaultPlan, Stall, StuckSwitch
-
-
-def latched(service) -> list[str]:
-    """Names of the latched faults; a lost link adds its own ``link_down`` after the trip."""
-    names = [fault["reason"].split(":")[0] for fault in service.supervisor.status()["faults"]]
-    return [name for name in names if name != "link_down"]
-
-
-def drives_after_trip(service, name: str) -> list[float]:
-    """Drive values the device received answering the trip's sample and every later one."""
-    trip_seq = next(seq for trip, _t, seq in service.trips if trip == name)
-    return [m.drive for m in device_received(service) if type(m) is Drive and m.answers_seq >= trip_seq]
-
-
-async def stored_trips(service) -> list[dict]:
-    service.recorder.flush()
-    conn = open_for_reading(service.recorder.db_path)
-    try:
-        events = run_events(conn, service.run_id)
-    finally:
-        conn.close()
-    return [json.loads(data) for _t, kind, _s, data in events if kind == "interlock.trip"]
-
-
-async def reset_to_idle(service) -> None:
-    service.execute("reset", {}, "api")
-    await run_for(service, 0.1)
-    machine = service.supervisor.machine
-    assert machine.state is State.IDLE
-    assert machine.output is Output.OFF
-    assert not service.cycle.device_armed
-    assert service.rig.device.armed is False
-
-
-async def check_drive_off_trip(service, name: str) -> None:
-    await run_for(service, 0.05)
-    assert latched(service) == [name]
-    assert service.supervisor.machine.state is State.FAULT
-    drives = drives_after_trip(service, name)
-    assert drives and all(drive == 0.0 for drive in drives)
-    assert any(type(m) is Stop for m in device_received(service))
-    trips = await stored_trips(service)
-    assert trips[0]["name"] == name  # a fault that persists may be recorded again, same name
-    assert {trip["name"] for trip in trips} == {name}
-    assert trips[0]["rx_frames"] and trips[0]["tx_frames"]
 
 
 async def test_stuck_limit_switch_trips_the_limit_switch_interlock_with_the_drive_off(tmp_path):
@@ -160,8 +122,7 @@ async def test_overspeed_from_a_shove_on_the_cart_starts_a_controlled_stop(tmp_p
 
 
 async def test_hostile_set_point_near_the_end_plus_a_shove_trips_the_stopping_distance(tmp_path):
-    # The stop ramp decelerates as hard as the predictive check assumes the rig can brake.
-    async with running_service(tmp_path, extra="[stop]\ndecel_mps2 = 8.0\n") as service:
+    async with running_service(tmp_path) as service:  # default stop deceleration
         service.start_recording("test")
         await homed_and_ready(service)
         service.execute("setpoint", {"x_m": 0.3}, "api")
@@ -169,7 +130,7 @@ async def test_hostile_set_point_near_the_end_plus_a_shove_trips_the_stopping_di
         assert service.supervisor.machine.state is State.READY
         service.rig.apply_impulse_now(cart_ns=0.9)  # ~1 m/s toward the end 6 cm away
         await wait_for(service, State.FAULT)
-        assert latched(service)[0] in ("track.stopping_distance", "track.soft_limit")
+        assert latched(service) == ["track.stopping_distance"]
         await run_for(service, 2.0)
         assert service.supervisor.machine.output is Output.OFF
         assert abs(service.rig.state[0]) < 0.45 - 0.03  # never reached the limit switch

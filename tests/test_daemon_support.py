@@ -9,14 +9,18 @@ raw frames (the last 100), so a test checks the bytes that reached the rig.
 from __future__ import annotations
 
 import contextlib
+import json
 from collections.abc import AsyncIterator
 from pathlib import Path
 
 from daemon.config import parse_config
+from daemon.errors import CommandRefused
+from daemon.recording.schema import SAMPLE_COLUMN_NAMES
+from daemon.recording.store import get_run, open_for_reading, run_events, sample_chunks
 from daemon.runtime.embedded_sim import SimOptions
 from daemon.runtime.service import PoiseService
-from daemon.supervisor import State
-from protocol import FrameDecoder, Message
+from daemon.supervisor import Output, State
+from protocol import Drive, FrameDecoder, Message, Stop
 from sim_device.faults import FaultPlan
 
 REPO = Path(__file__).resolve().parent.parent
@@ -56,12 +60,12 @@ def write_rig_config(
 async def running_service(
     tmp_path: Path, *, base: Path = KESTREL, extra: str = "", faults: FaultPlan | None = None,
     serve_api: bool = False, lockstep: bool = True, edits: dict[str, str] | None = None,
+    supply_v: float | None = None,
 ) -> AsyncIterator[PoiseService]:
+    """The daemon on the built-in simulated rig; ``supply_v`` fits the rig a supply measurement."""
     text = rig_config_text(tmp_path, base, extra, edits)
-    service = PoiseService(
-        parse_config(text), text,
-        sim=SimOptions(lockstep=lockstep, faults=faults or FaultPlan()), serve_api=serve_api,
-    )
+    options = SimOptions(lockstep=lockstep, faults=faults or FaultPlan(), supply_v=supply_v)
+    service = PoiseService(parse_config(text), text, sim=options, serve_api=serve_api)
     await service.start()
     try:
         yield service
@@ -87,8 +91,77 @@ async def homed_and_ready(service: PoiseService) -> None:
     await run_for(service, 0.2)
 
 
+async def execute_when_still(service: PoiseService, command: str, args: dict, within_s: float = 30.0) -> dict:
+    """Send ``command`` once the pendulum hangs still enough for its pre-arm checks (rig time)."""
+    deadline_s = service.cycle.t_s + within_s
+    while True:
+        try:
+            return service.execute(command, args, "api")
+        except CommandRefused as refused:
+            if "pendulum.hanging_still" not in refused.reason or service.cycle.t_s > deadline_s:
+                raise
+        await run_for(service, 0.1)
+
+
+def recorded_samples(service: PoiseService) -> list[dict]:
+    """Every sample of the open run as stored in the run store, one dict per row."""
+    service.recorder.flush()
+    conn = open_for_reading(service.recorder.db_path)
+    try:
+        run = get_run(conn, service.run_id, service.recorder.db_path)
+        rows = [row for chunk in sample_chunks(conn, run) for row in chunk]
+    finally:
+        conn.close()
+    return [dict(zip(SAMPLE_COLUMN_NAMES, row, strict=True)) for row in rows]
+
+
 def device_received(service: PoiseService) -> list[Message]:
     """The frames the simulated device received most recently (up to 100), decoded, oldest first."""
     decoder = FrameDecoder()
     chunks = service.rig.device.decoder.counters.rx_frames
     return [message for _, chunk, _ in chunks for message in decoder.feed(chunk + b"\x00")]
+
+
+def latched(service) -> list[str]:
+    """Names of the latched faults; a lost link adds its own ``link_down`` after the trip."""
+    names = [fault["reason"].split(":")[0] for fault in service.supervisor.status()["faults"]]
+    return [name for name in names if name != "link_down"]
+
+
+def drives_after_trip(service, name: str) -> list[float]:
+    """Drive values the device received answering the trip's sample and every later one."""
+    trip_seq = next(seq for trip, _t, seq in service.trips if trip == name)
+    return [m.drive for m in device_received(service) if type(m) is Drive and m.answers_seq >= trip_seq]
+
+
+async def stored_trips(service) -> list[dict]:
+    service.recorder.flush()
+    conn = open_for_reading(service.recorder.db_path)
+    try:
+        events = run_events(conn, service.run_id)
+    finally:
+        conn.close()
+    return [json.loads(data) for _t, kind, _s, data in events if kind == "interlock.trip"]
+
+
+async def reset_to_idle(service) -> None:
+    service.execute("reset", {}, "api")
+    await run_for(service, 0.1)
+    machine = service.supervisor.machine
+    assert machine.state is State.IDLE
+    assert machine.output is Output.OFF
+    assert not service.cycle.device_armed
+    assert service.rig.device.armed is False
+
+
+async def check_drive_off_trip(service, name: str) -> None:
+    await run_for(service, 0.05)
+    assert latched(service) == [name]
+    assert service.supervisor.machine.state is State.FAULT
+    drives = drives_after_trip(service, name)
+    assert drives and all(drive == 0.0 for drive in drives)
+    assert any(type(m) is Stop for m in device_received(service))
+    trips = await stored_trips(service)
+    assert trips[0]["name"] == name  # a fault that persists may be recorded again, same name
+    assert {trip["name"] for trip in trips} == {name}
+    assert trips[0]["rx_frames"] and trips[0]["tx_frames"]

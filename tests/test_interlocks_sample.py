@@ -63,14 +63,24 @@ def test_stopping_distance_matches_the_highway_code_table(mph, metres):
 
 def test_predictive_check_trips_only_when_the_stop_would_not_fit_toward_the_limit():
     il = interlocks()
-    # 8 m/s^2 and 10 ms (demo defaults): at 1.2 m/s the stop needs 0.012 + 0.09 = 0.102 m.
-    assert sample(il, x_m=0.25, v_mps=1.2) is None  # 0.11 m of room
-    trip = sample(il, x_m=0.27, v_mps=1.2)  # 0.09 m of room
+    # Demo defaults: the stop's 6 m/s^2, 10 ms reaction plus the stop loop's 50 ms lag: at
+    # 1.2 m/s the stop needs 1.2 * 0.06 + 1.2^2 / 12 = 0.072 + 0.12 = 0.192 m.
+    assert sample(il, x_m=0.16, v_mps=1.2) is None  # 0.20 m of room
+    trip = sample(il, x_m=0.18, v_mps=1.2)  # 0.18 m of room
     assert (trip.name, trip.action) == ("track.stopping_distance", Action.CONTROLLED_STOP)
-    assert trip.values["needed_m"] == pytest.approx(0.102)
-    assert trip.values["room_m"] == pytest.approx(0.09)
-    assert sample(il, x_m=0.27, v_mps=-1.2) is None  # moving away: 0.63 m of room
-    assert sample(il, x_m=-0.27, v_mps=-1.2).name == "track.stopping_distance"
+    assert trip.values["needed_m"] == pytest.approx(0.192)
+    assert trip.values["room_m"] == pytest.approx(0.18)
+    assert sample(il, x_m=0.18, v_mps=-1.2) is None  # moving away: 0.54 m of room
+    assert sample(il, x_m=-0.18, v_mps=-1.2).name == "track.stopping_distance"
+
+
+def test_predictive_check_brakes_at_the_stop_ramps_deceleration():
+    # One setting: changing the stop's deceleration changes what the predictive check assumes.
+    gentle = interlocks("\n[stop]\ndecel_mps2 = 3.0\n")
+    assert gentle.limits.stop_decel_mps2 == 3.0
+    # 1.2 * 0.06 + 1.44 / 6 = 0.312 m needed, 0.26 m of room.
+    assert sample(gentle, x_m=0.10, v_mps=1.2).name == "track.stopping_distance"
+    assert sample(interlocks(), x_m=0.10, v_mps=1.2) is None
 
 
 def test_beyond_the_soft_limit_is_a_controlled_stop_and_names_the_position():

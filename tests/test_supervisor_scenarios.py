@@ -9,7 +9,7 @@ import pytest
 
 from daemon.config import demo_config_path, parse_config
 from daemon.errors import CommandRefused
-from daemon.supervisor import Command, Event, Output, State, Supervisor
+from daemon.supervisor import Action, Command, Event, Output, State, Supervisor, Trip
 from daemon.supervisor.prechecks import Health, PrecheckLimits, prearm_failures
 from protocol.messages import F_DRIVER, F_ESTOP, F_RESET, SW_END_STOP, SW_ESTOP_BUTTON, SW_LIMIT_NEG
 
@@ -235,3 +235,15 @@ def test_status_is_json_able_and_carries_the_contract_keys():
     assert rows["drive.supply"]["margin"] == pytest.approx(1.5)
     assert rows["drive.supply"]["limit"] == 14.0
     assert status["rig"]["soft_limit_m"] == pytest.approx(0.36)
+
+
+def test_a_trip_that_goes_on_while_latched_is_latched_once():
+    rig = Rig()
+    rig.balancing()
+    crc = Trip("link.crc", Action.DRIVE_OFF, "CRC failures above 5/s (burst 10)", {"total": 11.0})
+    for _ in range(3):
+        rig.sup.trip(crc, rig.t_s)
+        rig.sample()
+    rig.sup.trip(Trip("link.gaps", Action.DRIVE_OFF, "sequence gaps above 5/s", {}), rig.t_s)
+    assert [fault.name for fault in rig.sup.machine.faults] == ["link.crc", "link.gaps"]
+    assert rig.sup.machine.state is State.FAULT

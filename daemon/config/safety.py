@@ -20,11 +20,13 @@ class InterlockSettings(Section):
     soft_limit_inset_m: float = Field(
         default=0.06, ge=0.0, le=1.0, description="soft limits this far inside the switches"
     )
-    braking_decel_mps2: float = Field(
-        default=8.0, gt=0.0, le=200.0, description="deceleration the predictive track check assumes"
-    )
+    # The predictive stopping-distance check brakes at stop.decel_mps2, the deceleration the
+    # category 1 stop really applies (one setting, so a trip can always stop in the room it saw).
     reaction_latency_s: float = Field(
-        default=0.01, ge=0.0, le=1.0, description="worst-case time from sample to braking"
+        default=0.01,
+        ge=0.0,
+        le=1.0,
+        description="worst-case time from sample to braking, on top of the stop loop's own lag",
     )
     # Speed
     max_cart_speed_mps: float = Field(default=1.5, gt=0.0, le=20.0)
@@ -110,8 +112,17 @@ class InterlockSettings(Section):
 
 class StopSettings(Section):
     category: Literal[0, 1] = Field(default=1, description="IEC 60204-1 stop category")
+    # The category 1 ramp's deceleration, and the braking the predictive stopping-distance
+    # interlock counts on. The velocity loop following the ramp may ask the drive for up to twice
+    # this (daemon/supervisor/stop_ramp.py), so it must stay within what the drive gives at its
+    # limit in every state: 6 m/s^2 asks up to 12, and at their drive limits Kestrel-1 brakes
+    # at 38 m/s^2 or more and Wren-2 at 16 or more, whatever the pendulum does short of running
+    # away (checked on the plant model by tests/test_interlocks_braking.py).
     decel_mps2: float = Field(
-        default=3.0, gt=0.0, le=100.0, description="category 1 ramp deceleration"
+        default=6.0,
+        gt=0.0,
+        le=100.0,
+        description="category 1 stop deceleration; the stopping-distance interlock assumes it",
     )
     stopped_speed_mps: float = Field(
         default=0.01, gt=0.0, le=1.0, description="the cart counts as stopped below this speed"

@@ -10,7 +10,9 @@ pendulum: the pendulum's energy changes at ``m l a cos(th) w`` (see
 left by homing dies away in a few seconds instead of minutes.
 
 :class:`CartVelocityFollower` is ``a = (v_sp - v) / tau``, saturated; the stop
-ramp hands it a velocity set-point falling to zero.
+ramp hands it a velocity set-point falling to zero. Its ``tau`` and saturation
+are the stop's (daemon/supervisor/stop_ramp.py), since the stopping-distance
+interlock counts the lag ``tau`` gives.
 """
 
 from __future__ import annotations
@@ -25,7 +27,6 @@ __all__ = ["CartHold", "CartVelocityFollower"]
 HOLD_BANDWIDTH_HZ = 0.3
 HOLD_MAX_ACCEL_MPS2 = 2.0
 SWING_DAMPING_PER_S = 1.0  # m/s^2 of cart acceleration per rad/s of pendulum rate
-FOLLOW_TIME_CONSTANT_S = 0.05
 
 
 class CartHold:
@@ -58,8 +59,7 @@ class CartVelocityFollower:
 
     __slots__ = ("_a_max", "_drive", "_inv_tau")
 
-    def __init__(self, params: PlantParams, max_accel_mps2: float,
-                 time_constant_s: float = FOLLOW_TIME_CONSTANT_S):
+    def __init__(self, params: PlantParams, max_accel_mps2: float, time_constant_s: float):
         self._a_max = max_accel_mps2
         self._inv_tau = 1.0 / time_constant_s
         self._drive = AccelerationDrive(params)

@@ -51,6 +51,7 @@ from daemon.link.link import Link
 from daemon.runtime.timing import RING_SAMPLES, TimingRings
 from daemon.supervisor import Action, Event, LinkErrorMonitor, Output, State, Supervisor, Trip
 from daemon.supervisor.states import MOTION_STATES
+from daemon.supervisor.stop_ramp import FOLLOWER_ACCEL_FACTOR, FOLLOWER_TIME_CONSTANT_S
 from protocol import ST_LOCKSTEP, Arm, Reply, ReplyResult, Stop, Telemetry, encode_drive
 
 READ_BYTES = 65536
@@ -90,7 +91,9 @@ class ControlCycle:
         self.controls = controls
         self.homing = homing
         self.hold = CartHold(controls.params)
-        self.follower = CartVelocityFollower(controls.params, 2.0 * config.stop.decel_mps2)
+        self.follower = CartVelocityFollower(
+            controls.params, FOLLOWER_ACCEL_FACTOR * config.stop.decel_mps2, FOLLOWER_TIME_CONSTANT_S
+        )
         self.excitation: Excitation | None = None
         self.excite_start_s = 0.0
         self.monitor = LinkErrorMonitor(config)

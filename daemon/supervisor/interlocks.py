@@ -24,6 +24,7 @@ from dataclasses import dataclass
 from enum import IntEnum, IntFlag
 from typing import TYPE_CHECKING
 
+from daemon.supervisor.stop_ramp import stop_lag_s
 from protocol.messages import (
     F_DRIVER,
     F_ESTOP,
@@ -76,8 +77,8 @@ class InterlockLimits:
     """Limits precomputed from the config so the per-sample check does no lookups or unit conversion."""
 
     soft_limit_m: float
-    braking_decel_mps2: float
-    reaction_latency_s: float
+    stop_decel_mps2: float  # the category 1 stop's deceleration
+    stop_lag_s: float  # sample to braking at that rate: reaction latency plus the stop loop's lag
     max_cart_speed_mps: float
     max_pendulum_rate_radps: float
     drive_limit: float
@@ -99,8 +100,8 @@ class InterlockLimits:
         period_s = 1.0 / config.sampling.rate_hz
         return cls(
             soft_limit_m=soft_limit_m(config),
-            braking_decel_mps2=lim.braking_decel_mps2,
-            reaction_latency_s=lim.reaction_latency_s,
+            stop_decel_mps2=config.stop.decel_mps2,
+            stop_lag_s=stop_lag_s(lim.reaction_latency_s),
             max_cart_speed_mps=lim.max_cart_speed_mps,
             max_pendulum_rate_radps=math.radians(lim.max_pendulum_rate_dps),
             drive_limit=config.drive.limit,
@@ -256,9 +257,7 @@ class SampleInterlocks:
                 )
             if v_mps != 0.0:
                 room_m = lim.soft_limit_m - x_m if v_mps > 0.0 else lim.soft_limit_m + x_m
-                needed_m = stopping_distance_m(
-                    v_mps, lim.braking_decel_mps2, lim.reaction_latency_s
-                )
+                needed_m = stopping_distance_m(v_mps, lim.stop_decel_mps2, lim.stop_lag_s)
                 if needed_m > room_m:
                     return Trip(
                         "track.stopping_distance",

@@ -268,11 +268,14 @@ class StateMachine:
             return
         if trigger in (Event.LINK_UP, Command.RESET):
             return
+        name = trip.name if trip is not None else trigger.value
+        if self.state in LATCHED_STATES and any(fault.name == name for fault in self.faults):
+            return  # latched for this reason already (a rate trip that goes on): nothing new
         action = self._action_for(trigger, trip)
         if trip is not None:
             self.faults.append(Fault(trip.name, trip.reason, t_s, dict(trip.values)))
         else:
-            self.faults.append(Fault(trigger.value, cause or trigger.value, t_s))
+            self.faults.append(Fault(name, cause or name, t_s))
         if action is Action.DRIVE_OFF:
             self._drive_off()
         elif self.output is Output.CONTROL:

@@ -5,12 +5,28 @@ a cart velocity loop (in the control cycle) follows it. The stop is complete
 once the ramp has reached zero and the measured speed is below the stopped
 threshold; if the cart has still not stopped ``timeout_s`` after the ramp
 ended, the stop is overdue and the drive must be switched off anyway.
+
+The velocity loop (:class:`daemon.control.cart_loops.CartVelocityFollower`,
+``a = (v_sp - v) / tau``) is built from the two constants below. Following a
+ramp of deceleration ``a`` it lags the set-point by ``tau`` in time, so the cart
+stops ``v0 tau`` further than the ramp's ``v0^2 / (2a)``; the predictive
+stopping-distance interlock counts that lag (:func:`stop_lag_s`).
 """
 
 from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+
+#: Time constant of the velocity loop that follows the ramp.
+FOLLOWER_TIME_CONSTANT_S = 0.05
+#: The loop may ask for up to this multiple of the ramp's deceleration to catch up with it.
+FOLLOWER_ACCEL_FACTOR = 2.0
+
+
+def stop_lag_s(reaction_latency_s: float) -> float:
+    """Time from a sample to the cart braking at the ramp's rate: reaction plus the loop's lag."""
+    return reaction_latency_s + FOLLOWER_TIME_CONSTANT_S
 
 
 @dataclass(frozen=True, slots=True)

@@ -242,9 +242,7 @@ class Supervisor:
         checks = CHECKS_BY_STATE[self.machine.state]
         tripped = {f.name for f in self.machine.faults}
         room_m = lim.soft_limit_m - (self.x_m if self.v_mps >= 0.0 else -self.x_m)
-        stop_needed_m = stopping_distance_m(
-            self.v_mps, lim.braking_decel_mps2, lim.reaction_latency_s
-        )
+        stop_needed_m = stopping_distance_m(self.v_mps, lim.stop_decel_mps2, lim.stop_lag_s)
         rows = [
             ("track.soft_limit", Checks.TRACK, abs(self.x_m), lim.soft_limit_m, "m"),
             ("track.stopping_distance", Checks.TRACK, stop_needed_m, room_m, "m"),
