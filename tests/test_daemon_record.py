@@ -1,0 +1,92 @@
+"""The `record` command through the control API: each start opens a new run in the run store, stop ends it.
+
+The daemon runs on the simulated rig over a real pty (lockstep); the client
+speaks JSON lines on the control socket as the CLI does, and the runs are read
+back from the SQLite run store itself.
+"""
+
+from __future__ import annotations
+
+import pytest
+from test_daemon_support import run_for, running_service
+
+from daemon.api.client import ApiClient, ApiError
+from daemon.recording.store import get_run, list_runs, open_for_reading
+
+
+def runs(service) -> list:
+    service.recorder.flush()
+    conn = open_for_reading(service.recorder.db_path)
+    try:
+        return list_runs(conn)
+    finally:
+        conn.close()
+
+
+def run_record(service, run_id: int):
+    service.recorder.flush()
+    conn = open_for_reading(service.recorder.db_path)
+    try:
+        return get_run(conn, run_id, service.recorder.db_path)
+    finally:
+        conn.close()
+
+
+async def test_record_on_starts_a_run_with_the_note_and_record_off_ends_it(tmp_path):
+    async with running_service(tmp_path, serve_api=True) as service:
+        assert runs(service) == []
+        async with await ApiClient.connect(service.config.api.socket_path) as client:
+            started = await client.request("record", {"on": True, "note": "step response, 0.1 m"})
+            run_id = started["run_id"]
+            status = await client.request("status")
+            assert status["recording"]["active"] and status["recording"]["run_id"] == run_id
+            await run_for(service, 0.5)
+            open_run = run_record(service, run_id)
+            assert open_run.operator_notes == "step response, 0.1 m"
+            assert open_run.ended_unix_ns is None and open_run.samples_written > 0
+            assert open_run.rig_id == "kestrel-1" and "[drive]" in open_run.config_text
+
+            assert await client.request("record", {"on": False}) == {"run_id": None}
+            status = await client.request("status")
+            assert not status["recording"]["active"] and status["recording"]["run_id"] is None
+        ended = run_record(service, run_id)
+        assert ended.ended_unix_ns is not None and ended.outcome == "completed"
+        written = ended.samples_written
+        await run_for(service, 0.2)
+        assert run_record(service, run_id).samples_written == written  # nothing more after the stop
+        assert [run.run_id for run in runs(service)] == [run_id]
+
+
+async def test_record_on_while_recording_ends_the_open_run_and_starts_another(tmp_path):
+    async with running_service(tmp_path, serve_api=True) as service:
+        async with await ApiClient.connect(service.config.api.socket_path) as client:
+            first = (await client.request("record", {"on": True, "note": "first"}))["run_id"]
+            await run_for(service, 0.2)
+            second = (await client.request("record", {"on": True, "note": "second"}))["run_id"]
+            await run_for(service, 0.2)
+            assert second != first
+            await client.request("record", {"on": False})
+        stored = {run.run_id: run for run in runs(service)}
+        assert set(stored) == {first, second}
+        assert [stored[first].operator_notes, stored[second].operator_notes] == ["first", "second"]
+        assert stored[first].ended_unix_ns is not None and stored[second].ended_unix_ns is not None
+        assert stored[first].last_sample_id < stored[second].first_sample_id
+
+
+@pytest.mark.parametrize(
+    ("args", "message"),
+    [
+        ({}, "on"),
+        ({"on": "yes"}, "on"),
+        ({"on": True, "note": "x" * 201}, "note"),
+    ],
+)
+async def test_bad_record_arguments_are_refused_naming_the_argument_and_change_nothing(
+    tmp_path, args, message
+):
+    async with running_service(tmp_path, serve_api=True) as service:
+        async with await ApiClient.connect(service.config.api.socket_path) as client:
+            with pytest.raises(ApiError, match=f"record.*{message}"):
+                await client.request("record", args)
+            assert (await client.request("status"))["recording"]["active"] is False
+        assert runs(service) == []
