@@ -1,5 +1,7 @@
 """The real daemon (`poise run`, real time) against the simulator in another process (`poise sim --pty`).
 
+- `poise run --port socket://127.0.0.1:PORT` against `poise sim --tcp PORT`:
+  the handshake over TCP, and the link up at the configured rate.
 - kill -9 of the daemon while it balances: the simulator's own watchdog cuts
   the drive within its timeout (the daemon cannot help: it is dead).
 - The control API under malformed and hostile input, a client that never
@@ -18,6 +20,7 @@ import asyncio
 import contextlib
 import json
 import os
+import re
 import signal
 import sys
 import time
@@ -36,18 +39,19 @@ EXTRA = "[interlocks]\nlink_timeout_samples = 50\noverrun_budget_us = 20000.0\n"
 START_TIMEOUT_S = 60.0
 
 
-async def start_sim(config) -> tuple[asyncio.subprocess.Process, str]:
+async def start_sim(config, where: tuple[str, ...] = ("--pty",)) -> tuple[asyncio.subprocess.Process, str]:
+    """`poise sim` on a pty (or ``("--tcp", PORT)``); returns it and the address it says to connect to."""
     sim = await asyncio.create_subprocess_exec(
-        *POISE, "sim", "--pty", "--config", str(config), stdout=asyncio.subprocess.PIPE
+        *POISE, "sim", *where, "--config", str(config), stdout=asyncio.subprocess.PIPE
     )
     async with asyncio.timeout(START_TIMEOUT_S):
         line = (await sim.stdout.readline()).decode()
     return sim, line.rsplit("connect to ", 1)[1].strip()
 
 
-async def start_daemon(config, pty_path: str, socket_path: str):
+async def start_daemon(config, port_url: str, socket_path: str):
     daemon = await asyncio.create_subprocess_exec(
-        *POISE, "run", "--config", str(config), "--port", pty_path,
+        *POISE, "run", "--config", str(config), "--port", port_url,
         stdout=asyncio.subprocess.DEVNULL, stderr=asyncio.subprocess.PIPE,
     )
     try:
@@ -61,13 +65,13 @@ async def start_daemon(config, pty_path: str, socket_path: str):
 
 
 @contextlib.asynccontextmanager
-async def sim_and_daemon(config, socket_path: str):
+async def sim_and_daemon(config, socket_path: str, where: tuple[str, ...] = ("--pty",)):
     """The simulator and the daemon as subprocesses; both are gone when the block ends, however."""
-    sim, pty_path = await start_sim(config)
+    sim, address = await start_sim(config, where)
     daemon = None
     try:
-        daemon, client = await start_daemon(config, pty_path, socket_path)
-        yield pty_path, daemon, client
+        daemon, client = await start_daemon(config, address, socket_path)
+        yield address, daemon, client
     finally:
         if daemon is not None and daemon.returncode is None:
             daemon.kill()
@@ -193,3 +197,23 @@ async def test_hostile_api_clients_do_not_disturb_a_holding_rig(tmp_path):
     # stepped over depends on the machine's load, so only "it kept going" is checked here).
     assert after["link"]["frames_rx"] > before["link"]["frames_rx"]
     assert after["cycle"]["samples"] > before["cycle"]["samples"]
+
+
+@pytest.mark.slow
+async def test_the_daemon_runs_a_rig_on_a_tcp_port_with_the_link_up_at_the_configured_rate(tmp_path):
+    config = write_rig_config(tmp_path, extra=EXTRA, edits=EDITS)
+    socket_path = str(tmp_path / "poise.sock")
+    # Port 0: the simulator binds a free loopback port and prints its socket:// URL.
+    async with sim_and_daemon(config, socket_path, ("--tcp", "0")) as (url, daemon, client):
+        assert re.fullmatch(r"socket://127\.0\.0\.1:\d+", url)
+        status = await client.request("status")  # served only after the handshake and a first rate
+        await client.close()
+        await stop(daemon)
+        assert daemon.returncode == 0
+    assert status["state"] == "IDLE" and status["faults"] == []
+    assert status["rig"]["id"] == "kestrel-1"
+    link = status["link"]
+    assert link["connected"] is True
+    # The rate is counted against the rig's own sample times, so a loaded machine does not skew it.
+    assert link["rate_hz"] == pytest.approx(500.0, rel=0.05)
+    assert link["frames_rx"] > 0 and link["frames_tx"] > 0 and link["crc_failures"] == 0
