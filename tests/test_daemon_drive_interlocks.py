@@ -17,6 +17,10 @@ The scenario configs with shortened times are scenarios of our own.
 
 from __future__ import annotations
 
+import subprocess
+import sys
+
+import pytest
 from test_daemon_support import (
     check_drive_off_trip,
     drives_after_trip,
@@ -134,3 +138,20 @@ async def test_supply_sagging_below_its_range_switches_the_drive_off(tmp_path):
         assert report["drive.supply"]["state"] == "tripped"
         await run_for(service, 0.2)
         await reset_to_idle(service)
+
+
+@pytest.mark.parametrize(
+    ("option", "message"),
+    [
+        (["--supply-sag", "1:9"], "poise: --supply-sag: the rig measures no supply voltage (give --supply-v)"),
+        (["--supply-v", "12", "--supply-sag", "1"], "poise: --supply-sag: expected AT_S:V, got '1'"),
+        (["--supply-v", "0"], "poise: --supply-v: '0' must be between 0.1 and 1000"),
+        (["--cart-encoder-dead-at", "soon"], "poise: --cart-encoder-dead-at: 'soon' is not a number"),
+    ],
+)
+def test_malformed_supply_and_encoder_fault_options_of_poise_sim_get_one_line(option, message):
+    result = subprocess.run(
+        [sys.executable, "-m", "daemon.cli", "sim", "--pty", *option],
+        capture_output=True, text=True, timeout=60, check=False,
+    )
+    assert (result.returncode, result.stderr.strip(), result.stdout) == (2, message, "")
