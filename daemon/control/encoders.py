@@ -18,6 +18,7 @@ import math
 __all__ = ["CounterUnwrapper", "EncoderScaling", "wrap_angle"]
 
 TWO_PI = 2.0 * math.pi
+_PI = math.pi
 _SPAN = 1 << 32
 _HALF_SPAN = 1 << 31
 
@@ -40,10 +41,13 @@ class CounterUnwrapper:
         self._total = first_reading
 
     def update(self, reading: int) -> int:
-        step = (reading - self._last + _HALF_SPAN) % _SPAN - _HALF_SPAN
+        step = reading - self._last
+        if not -_HALF_SPAN <= step < _HALF_SPAN:  # wrapped (rare): the modulo needs two-digit ints
+            step = (step + _HALF_SPAN) % _SPAN - _HALF_SPAN
         self._last = reading
-        self._total += step
-        return self._total
+        total = self._total + step
+        self._total = total
+        return total
 
     @property
     def total(self) -> int:
@@ -80,8 +84,7 @@ class EncoderScaling:
     def update(self, cart_reading: int, pendulum_reading: int) -> tuple[float, float]:
         """``(x_m, theta_rad)`` from this sample's raw counter readings (theta not wrapped)."""
         cart = self._cart.update(cart_reading) - self.cart_offset_counts
-        pendulum = self._pendulum.update(pendulum_reading)
-        return cart * self._m_per_count, math.pi + pendulum * self._rad_per_count
+        return cart * self._m_per_count, _PI + self._pendulum.update(pendulum_reading) * self._rad_per_count
 
     def raw_x_m(self) -> float:
         """Cart position of the last sample without the homing offset (for homing itself)."""

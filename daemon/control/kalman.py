@@ -77,12 +77,14 @@ def design_kalman(
 class SteadyStateKalman:
     """Per-sample filter: measured ``x_m`` and wrapped ``theta_rad`` plus the applied drive in, state out."""
 
-    __slots__ = ("_f", "_g", "_l", "_s")
+    __slots__ = ("_m", "_s")
 
     def __init__(self, gains: KalmanGains):
-        self._f = gains.f
-        self._g = gains.g_u
-        self._l = gains.l
+        # All 28 coefficients in one flat tuple, row by row ([F | G_u | L]): one unpack per sample
+        # instead of 28 subscripts.
+        self._m = tuple(
+            v for f_row, g, l_row in zip(gains.f, gains.g_u, gains.l) for v in (*f_row, g, *l_row)
+        )
         self._s = (0.0, 0.0, 0.0, 0.0)
 
     def reset(self, state: Vector4) -> None:
@@ -92,15 +94,16 @@ class SteadyStateKalman:
     def update(self, x_m: float, theta_rad: float, applied_drive: float) -> Vector4:
         """The state estimate after this sample's measurement; ``applied_drive`` held since the last one."""
         s0, s1, s2, s3 = self._s
-        f0, f1, f2, f3 = self._f
-        g0, g1, g2, g3 = self._g
-        l0, l1, l2, l3 = self._l
+        (f00, f01, f02, f03, g0, l00, l01,
+         f10, f11, f12, f13, g1, l10, l11,
+         f20, f21, f22, f23, g2, l20, l21,
+         f30, f31, f32, f33, g3, l30, l31) = self._m
         u = applied_drive
         s = (
-            f0[0] * s0 + f0[1] * s1 + f0[2] * s2 + f0[3] * s3 + g0 * u + l0[0] * x_m + l0[1] * theta_rad,
-            f1[0] * s0 + f1[1] * s1 + f1[2] * s2 + f1[3] * s3 + g1 * u + l1[0] * x_m + l1[1] * theta_rad,
-            f2[0] * s0 + f2[1] * s1 + f2[2] * s2 + f2[3] * s3 + g2 * u + l2[0] * x_m + l2[1] * theta_rad,
-            f3[0] * s0 + f3[1] * s1 + f3[2] * s2 + f3[3] * s3 + g3 * u + l3[0] * x_m + l3[1] * theta_rad,
+            f00 * s0 + f01 * s1 + f02 * s2 + f03 * s3 + g0 * u + l00 * x_m + l01 * theta_rad,
+            f10 * s0 + f11 * s1 + f12 * s2 + f13 * s3 + g1 * u + l10 * x_m + l11 * theta_rad,
+            f20 * s0 + f21 * s1 + f22 * s2 + f23 * s3 + g2 * u + l20 * x_m + l21 * theta_rad,
+            f30 * s0 + f31 * s1 + f32 * s2 + f33 * s3 + g3 * u + l30 * x_m + l31 * theta_rad,
         )
         self._s = s
         return s

@@ -38,8 +38,10 @@ class FilteredDifference:
     def update(self, position: float) -> float:
         raw = (position - self._last) * self._inv_dt
         self._last = position
-        self._rate += self._alpha * (raw - self._rate)
-        return self._rate
+        rate = self._rate
+        rate += self._alpha * (raw - rate)
+        self._rate = rate
+        return rate
 
     @property
     def rate(self) -> float:

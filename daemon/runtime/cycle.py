@@ -132,6 +132,12 @@ class ControlCycle:
         self._next_wake_s = math.inf
         self._waiter_order = 0
         self.on_state_change: Callable[[State, State], None] | None = None
+        # Bound once: the hot path calls these every sample (attribute chains cost per lookup).
+        self._estimate = controls.estimator.update
+        self._has_fallen = controls.window.has_fallen
+        self._balance_update = controls.balance.update
+        self._on_sample = supervisor.on_sample
+        self._rings = (self.timing.latency_ns, *self.timing.stages_ns)
 
     # ------------------------------------------------------------------ port
 
@@ -189,48 +195,56 @@ class ControlCycle:
         scale the velocity estimates of the answered sample by the number of periods missed.
         """
         self.missed += 1
-        self.controls.estimator.update(tm.cart_counts, tm.pendulum_counts, self._prev_applied)
+        self._estimate(tm.cart_counts, tm.pendulum_counts, self._prev_applied)
         self._prev_applied = tm.drive_applied
 
     def _sample(self, tm: Telemetry, t0: int, t1: int) -> None:
+        # Written for speed (it runs every sample): each attribute read once, the balance case
+        # dispatched inline, the hot callables bound in __init__.
         t_us = tm.t_us
         if t_us < self._last_t_us:  # the device restarted its clock (reset): keep time monotonic
             self._epoch_us += self._last_t_us + self._period_us
         self._last_t_us = t_us
-        t_s = (t_us + self._epoch_us) * 1e-6
-        self.t_s = t_s
+        self.t_s = t_s = (t_us + self._epoch_us) * 1e-6
         self.last_telemetry = tm
         self.last_rx_ns = t0
         if not self.telemetry_flowing:
             self.telemetry_flowing = True
             self._on_telemetry_resumed()
         switches = tm.switches
-        x, v, th, w = measured = self.controls.estimator.update(
-            tm.cart_counts, tm.pendulum_counts, self._prev_applied
-        )
+        cart_counts = tm.cart_counts
+        pendulum_counts = tm.pendulum_counts
+        x, v, th, w = measured = self._estimate(cart_counts, pendulum_counts, self._prev_applied)
         self._prev_applied = tm.drive_applied
         self.measured = measured
         t2 = _clock_ns()
 
         m = self.machine
-        if m.output is _CONTROL:
-            drive = self._control(m.state, t_s, x, v, th, w, switches)
-        elif m.output is _RAMP:
+        output = m.output
+        if output is _CONTROL:
+            state = m.state
+            if state is _BALANCE and not self._has_fallen(th):  # the common case, inline
+                balance = self.controls.balance
+                balance.set_point_m = m.setpoint_m
+                drive = self._balance_update(x, v, th, w)
+            else:
+                drive = self._control(state, t_s, x, v, th, w, switches)
+        elif output is _RAMP:
             drive = self.follower.update(m.ramp.velocity_setpoint(t_s), x, v, th, w)
         else:
             drive = 0.0
         requested = drive
         t3 = _clock_ns()
 
-        trip = self.supervisor.on_sample(
-            t_s, x, v, th, w, drive, switches, tm.faults & self.fault_mask, tm.supply_v
-        )
+        faults = tm.faults
+        trip = self._on_sample(t_s, x, v, th, w, drive, switches, faults & self.fault_mask, tm.supply_v)
         stats = self._stats
+        gaps = stats.gaps
         corrupt = stats.crc_failures + stats.cobs_errors + stats.runts
-        if stats.gaps != self._seen_gaps or corrupt != self._seen_corrupt:
-            self._seen_gaps = stats.gaps
+        if gaps != self._seen_gaps or corrupt != self._seen_corrupt:
+            self._seen_gaps = gaps
             self._seen_corrupt = corrupt
-            rate_trip = self.monitor.note_counters(t_s, stats.gaps, corrupt)
+            rate_trip = self.monitor.note_counters(t_s, gaps, corrupt)
             if rate_trip is not None:
                 self.supervisor.trip(rate_trip, t_s)
                 self._on_trip(rate_trip, t_s)
@@ -257,17 +271,18 @@ class ControlCycle:
             self._on_link_lost(f"writing the rig port failed: {exc.strerror or exc}")
             return
         t_write = _clock_ns()
+        size = len(frame)
         stats.frames_tx += 1
-        stats.bytes_tx += len(frame)
-        stats.tx_frames.append((t_write, frame[:-1], len(frame) - 1))
+        stats.bytes_tx += size
+        stats.tx_frames.append((t_write, frame[:-1], size - 1))
         self.last_drive = drive
 
         latency_ns = t_write - t0
         timing = self.timing
         i = timing.count % RING_SAMPLES
         timing.count += 1
-        timing.latency_ns[i] = latency_ns
-        decode, estimate, control, interlocks, encode, write = timing.stages_ns
+        latency, decode, estimate, control, interlocks, encode, write = self._rings
+        latency[i] = latency_ns
         decode[i] = t1 - t0
         estimate[i] = t2 - t1
         control[i] = t3 - t2
@@ -276,7 +291,7 @@ class ControlCycle:
         write[i] = t_write - t5
         self.samples += 1
         self.put_sample((
-            tm.seq, t_us, t0, tm.cart_counts, tm.pendulum_counts, switches, tm.faults,
+            tm.seq, t_us, t0, cart_counts, pendulum_counts, switches, faults,
             x, v, th, w, requested, drive, self._mode_code, latency_ns * 1e-3,
         ))
         if trip is not None:
