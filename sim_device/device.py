@@ -117,6 +117,9 @@ class SimulatedDevice:
     ``sim_time_us`` counts simulated time since the simulator started and is
     never reset; fault events are scheduled on it. The device's own time
     (Telemetry.t_us) restarts at a device reset.
+
+    Each sample interval is integrated in the fewest RK4 sub-steps that keep
+    every step at or below ``max_step_us`` (set on each accepted Configure).
     """
 
     def __init__(
@@ -127,7 +130,11 @@ class SimulatedDevice:
         transport: Transport,
         clock: SampleClock,
         schedule: FaultSchedule,
+        max_step_us: int = 1000,
     ):
+        if max_step_us < 1:
+            raise ValueError(f"max_step_us must be >= 1 (got {max_step_us!r})")
+        self.max_step_us = max_step_us
         self.identity = identity
         self.plant = plant
         self.sensors = sensors
@@ -308,11 +315,17 @@ class SimulatedDevice:
         self.clock.stop()
         self.configured = True
         self._period_us = round(1e6 / rate)
+        self.plant.substeps = self._substeps_per_sample(self._period_us)
         self._sample_seq = -1
         self._first_sample = True
         self._last_feed_us = self.t_us
         assert self._loop is not None, "start() the device before it receives commands"
         self.clock.start(self._loop, self.take_sample, 1.0 / rate)
+
+    def _substeps_per_sample(self, period_us: int) -> int:
+        """RK4 sub-steps for one sample interval, the longest one jitter allows included."""
+        longest_us = period_us + self.sensors.max_sample_offset_us(period_us)
+        return max(1, -(-longest_us // self.max_step_us))
 
     def _on_arm(self, message: Arm) -> None:
         if message.arm not in (0, 1):

@@ -43,12 +43,22 @@ NO_FAULTS = FaultPlan()
 
 @dataclass(frozen=True)
 class RigSpec:
-    """Everything physical about a simulated rig: its mechanics, its sensors, its identity."""
+    """Everything physical about a simulated rig: its mechanics, its sensors, its identity.
+
+    ``max_integration_step_s`` bounds the plant's RK4 step: the device integrates each sample
+    in as few sub-steps as keep every step at or below it (one per sample at 1 kHz).
+    """
 
     plant: PlantParams
     sensors: SensorParams
     identity: DeviceIdentity
-    plant_substeps: int = 2
+    max_integration_step_s: float = 1e-3
+
+    def __post_init__(self) -> None:
+        if not self.max_integration_step_s >= 1e-6:
+            raise ValueError(
+                f"max_integration_step_s must be >= 1e-6 s (got {self.max_integration_step_s!r})"
+            )
 
 
 class SimulatedRig:
@@ -79,7 +89,7 @@ class SimulatedRig:
         state0 = HANGING_AT_REST
         if faults.initial_angle_rad is not None:
             state0 = (0.0, 0.0, faults.initial_angle_rad, 0.0)
-        self.plant = Plant(spec.plant, state0, substeps=spec.plant_substeps)
+        self.plant = Plant(spec.plant, state0)
         self.device = SimulatedDevice(
             spec.identity,
             self.plant,
@@ -87,6 +97,7 @@ class SimulatedRig:
             transport,
             self.clock,
             FaultSchedule(faults, seed),
+            max_step_us=round(spec.max_integration_step_s * 1e6),
         )
 
     def start(self, loop: asyncio.AbstractEventLoop | None = None) -> None:

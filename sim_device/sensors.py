@@ -116,5 +116,9 @@ class Sensors:
         jitter = self.params.jitter_us
         if not jitter:
             return 0
-        bound = period_us // 4
+        bound = self.max_sample_offset_us(period_us)
         return max(-bound, min(bound, round(self._rng.gauss(0.0, jitter))))
+
+    def max_sample_offset_us(self, period_us: int) -> int:
+        """The largest offset :meth:`sample_offset_us` gives, either way: a quarter period."""
+        return period_us // 4 if self.params.jitter_us > 0.0 else 0

@@ -341,6 +341,18 @@ async def test_well_framed_unknown_or_wrong_length_frames_are_answered_corrupt_o
     assert (counters.crc_failures, counters.unknown_type, counters.malformed) == (1, 1, 2)
 
 
+@pytest.mark.parametrize(
+    ("rate_hz", "jitter_us", "substeps"), [(1000, 0.0, 1), (500, 0.0, 2), (400, 0.0, 3), (1000, 30.0, 2)]
+)
+async def test_each_sample_is_integrated_in_rk4_steps_of_at_most_1_ms(rate_hz, jitter_us, substeps):
+    # 400 Hz: 2.5 ms per sample in 3 steps; with jitter a sample can come a quarter period late
+    spec = demo_spec(1000)
+    spec = replace(spec, sensors=replace(spec.sensors, jitter_us=jitter_us))
+    async with connect("pipe", spec, lockstep=True) as (rig, host):
+        await handshake(host, rate_hz, 200)
+    assert rig.plant.substeps == substeps
+
+
 # ---- injected faults, each as the host sees it ------------------------------------------------
 
 
