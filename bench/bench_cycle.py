@@ -388,7 +388,8 @@ def callgrind_instructions(samples: int) -> tuple[dict[str, float], list[str]]:
             "valgrind", "--tool=callgrind", "--dump-before=os_getppid", "--separate-threads=yes",
             f"--callgrind-out-file={out}", sys.executable, __file__, "--replay", str(samples),
         ]
-        env = dict(os.environ, PYTHONHASHSEED="0")
+        # one BLAS thread: idle OpenBLAS workers spin, which is slow under valgrind
+        env = dict(os.environ, PYTHONHASHSEED="0", OPENBLAS_NUM_THREADS="1")
         child = subprocess.run(command, capture_output=True, text=True, env=env, check=False)
         if child.returncode != 0:
             raise SystemExit(f"callgrind run failed:\n{child.stderr[-2000:]}")

@@ -164,11 +164,12 @@ class BalanceController:
         self._blend_step = self._blend / self._blend_samples
 
     def update(self, x: float, v: float, theta: float, omega: float) -> float:
-        u = self._law(x, v, theta, omega) + self._blend
-        if self._blend != 0.0:
-            self._blend -= self._blend_step
-            if (self._blend > 0.0) == (self._blend_step < 0.0) or self._blend == 0.0:
-                self._blend = 0.0
+        blend = self._blend
+        u = self._law(x, v, theta, omega) + blend
+        if blend != 0.0:  # only for blend_samples samples after a reset
+            step = self._blend_step
+            blend -= step
+            self._blend = 0.0 if (blend > 0.0) == (step < 0.0) or blend == 0.0 else blend
         self.samples += 1
         limit = self.limit
         if u > limit or u < -limit:

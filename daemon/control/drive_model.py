@@ -81,4 +81,9 @@ class AccelerationDrive:
             u += self._band
         elif u < 0.0:
             u -= self._band
-        return clamp(u, self.limit)
+        limit = self.limit  # clamp(u, limit), inlined: one call less per sample
+        if u > limit:
+            return limit
+        if u < -limit:
+            return -limit
+        return u
