@@ -85,7 +85,8 @@ async def run_for(service: PoiseService, seconds: float) -> None:
 async def homed_and_ready(service: PoiseService) -> None:
     """Home, arm, and hold the cart at the centre (state READY)."""
     service.execute("home", {}, "api")
-    assert await wait_for(service, State.IDLE, State.FAULT) is State.IDLE
+    reached = await wait_for(service, State.IDLE, State.FAULT)
+    assert reached is State.IDLE, f"homing ended in {reached.name}: {service.supervisor.machine.faults}"
     service.execute("arm", {}, "api")
     assert service.supervisor.machine.state is State.READY
     await run_for(service, 0.2)
