@@ -10,8 +10,9 @@
    encode -> os.write -> recorder queue). Printed: the whole cycle per
    sample, and each stage run on its own over the same samples (decode,
    estimate, control, interlocks, encode+write, record); "glue" is the whole
-   cycle less the stages (reads, bookkeeping, timers). Timers are read once
-   per block of samples, never per sample.
+   cycle less the stages (the os.read, bookkeeping, the cycle's own timers;
+   thread_time counts the kernel's side of the read too). Timers are read
+   once per block of samples, never per sample.
 3. Read->write latency: the daemon in this process, the simulated rig in real
    time at 1 kHz in another process (`poise sim --pty`, the Wren-2 rig), the
    rig idle (each frame answered with a zero drive: the same read, decode,
@@ -20,7 +21,7 @@
 
 ``--callgrind N`` instead runs the replay of part 2 under
 ``valgrind --tool=callgrind`` for N samples and prints machine instructions
-per sample, whole cycle and per stage: repeatable whatever the machine's load,
+per sample (user space only), whole cycle and per stage: repeatable whatever the machine's load,
 so two versions of the code can be compared by ratio. Each region of the
 replay is bracketed by a call of os.getppid, on which callgrind dumps its
 counts (``--dump-before=os_getppid``).
