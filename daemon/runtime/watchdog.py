@@ -6,7 +6,9 @@ expected:
 - ``link.timeout``: no telemetry for ``interlocks.link_timeout_samples`` sample
   periods (:func:`daemon.supervisor.link_timeout_trip`). A rig in lockstep
   (Telemetry status bit ST_LOCKSTEP) samples only when the host answers, so
-  there silence is judged against at least LOCKSTEP_SILENCE_S of wall-clock time.
+  there silence is judged against at least LOCKSTEP_SILENCE_S of wall-clock time,
+  and not on a tick that itself ran late: a starved host process (a loaded
+  shared machine) has simply not read what the rig sent.
 - ``loop.stall``: the watchdog itself ran later than the link timeout, which
   means the event loop, and with it the control cycle, was blocked that long.
 
@@ -26,7 +28,7 @@ from daemon.runtime.cycle import ControlCycle
 from daemon.supervisor import Action, InterlockLimits, Supervisor, Trip, link_timeout_trip
 from protocol import ST_LOCKSTEP, ST_WATCHDOG_ACTIVE
 
-LOCKSTEP_SILENCE_S = 0.25
+LOCKSTEP_SILENCE_S = 0.75
 RATE_WINDOW_S = 0.1
 
 
@@ -63,6 +65,8 @@ async def run_watchdog(
                     {"blocked_s": late_s, "limit_s": limits.link_timeout_s},
                 )
             )
+            continue
+        if lockstep and late_s > tick_s:
             continue
         silent_limit = limits
         if lockstep and limits.link_timeout_s < LOCKSTEP_SILENCE_S:
