@@ -143,6 +143,7 @@ class SimulatedDevice:
         self.schedule = schedule
         drive = plant.params.drive
         self._drive_params = drive
+        self._drive_limit = drive.limit
         self._hello_fields = self._hello_payload()
         self._loop: asyncio.AbstractEventLoop | None = None
         self.sim_time_us = 0
@@ -269,12 +270,13 @@ class SimulatedDevice:
     def _on_drive(self, message: Drive) -> None:
         if not self.configured:
             return
-        drive = message.drive
-        if not math.isfinite(drive):
-            drive = 0.0
-        self._pending_drive = applied_command(self._drive_params, drive)
+        _seq, drive, answers_seq = message
+        limit = self._drive_limit
+        if not -limit <= drive <= limit:  # to clamp, or NaN or infinite (taken as 0)
+            drive = applied_command(self._drive_params, drive) if math.isfinite(drive) else 0.0
+        self._pending_drive = drive
         self._last_feed_us = self.t_us
-        behind = (self._sample_seq - message.answers_seq) & 0xFFFF
+        behind = (self._sample_seq - answers_seq) & 0xFFFF
         if behind == 0:
             self.clock.command_received()
         elif behind < 0x8000:
@@ -361,10 +363,11 @@ class SimulatedDevice:
             self.plant.step(self.drive_output, dt_us * 1e-6)
             self.t_us += dt_us
             self.sim_time_us += dt_us
-        for event in self.schedule.due(self.sim_time_us):
-            self.apply_fault(event)
-            if not self.configured:  # a reset: this sample never happened
-                return
+        if self.sim_time_us >= self.schedule.next_at_us:
+            for event in self.schedule.due(self.sim_time_us):
+                self.apply_fault(event)
+                if not self.configured:  # a reset: this sample never happened
+                    return
         if self.t_us - self._last_feed_us > self.watchdog_ms * 1000:
             self._latch_fault(F_WATCHDOG, (self.t_us - self._last_feed_us) * 1e-3)
         if not self.armed:

@@ -164,6 +164,7 @@ class FaultSchedule:
     def __init__(self, plan: FaultPlan, seed: int = 0):
         self._heap: list[_Entry] = []
         self._order = itertools.count()
+        self.next_at_us: float = math.inf  # sim time of the earliest pending event; inf if none
         for at_s, event in plan.events:
             self.add(at_s, event)
         self._noisy_bit = {"neg": 1, "pos": 2, None: 0}[plan.noisy_switch]
@@ -175,6 +176,7 @@ class FaultSchedule:
         if not math.isfinite(at_s):
             raise ValueError(f"fault time must be finite (got {at_s!r})")
         heapq.heappush(self._heap, _Entry(round(at_s * 1e6), next(self._order), event))
+        self.next_at_us = self._heap[0].at_us
 
     def due(self, sim_time_us: int) -> list[FaultEvent]:
         """The events whose time has come, in time order (ties in the order they were added)."""
@@ -184,6 +186,7 @@ class FaultSchedule:
         events = []
         while heap and heap[0].at_us <= sim_time_us:
             events.append(heapq.heappop(heap).event)
+        self.next_at_us = heap[0].at_us if heap else math.inf
         return events
 
     @property
