@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import contextlib
 import json
+from collections import deque
 from collections.abc import AsyncIterator
 from pathlib import Path
 
@@ -114,6 +115,12 @@ def recorded_samples(service: PoiseService) -> list[dict]:
     finally:
         conn.close()
     return [dict(zip(SAMPLE_COLUMN_NAMES, row, strict=True)) for row in rows]
+
+
+def keep_every_device_frame(service: PoiseService) -> None:
+    """From now on keep every frame the simulated device receives, not only the last 100:
+    a lockstep rig answers hundreds of samples while a test awaits a client round trip."""
+    service.rig.device.decoder.counters.rx_frames = deque()
 
 
 def device_received(service: PoiseService) -> list[Message]:

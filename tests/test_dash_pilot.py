@@ -15,6 +15,7 @@ import pytest
 from test_daemon_support import (
     device_received,
     homed_and_ready,
+    keep_every_device_frame,
     run_for,
     running_service,
     wait_for,
@@ -87,6 +88,7 @@ async def test_estop_key_during_balance_latches_estop_and_the_next_command_frame
         app = dashboard(service)
         async with app.run_test(size=SIZE) as pilot:
             await until(pilot, lambda: app.state == "BALANCE", "the dashboard to show BALANCE")
+            keep_every_device_frame(service)
             await pilot.press("space")
             assert await reached(service, State.ESTOP) is State.ESTOP
             await run_for(service, 0.1)
