@@ -23,8 +23,7 @@ import time
 from daemon.config import load_config
 from daemon.control.encoders import wrap_angle
 from daemon.control.rig_setup import build_control_set
-from daemon.control.simulate import ClosedLoop, SwingUpThenBalance
-from sim_device.plant import pendulum_energy
+from daemon.control.simulate import ClosedLoop, SwingUpThenBalance, swing_up_until_caught
 from sim_device.sensors import SensorParams
 
 RIGS = ("configs/kestrel-1.toml", "configs/wren-2.toml")
@@ -40,21 +39,8 @@ def run_once(path: str, law: str, seed: int, noise_counts: float) -> dict:
                            noise_counts, noise_counts)
     loop = ClosedLoop(cs.params, sensors, cs.estimator, config.sampling.rate_hz, seed=seed)
     sequence = SwingUpThenBalance(cs.swing_up, cs.balance, cs.window)
-    upright = 2 * cs.params.pendulum_mass_kg * cs.params.com_distance_m * cs.params.gravity_mps2
-    amplitudes, peak, last_p, pumping = [], 0.0, 0.0, True
-    caught_s, caught_state = None, None
-    for _ in range(round(DEADLINE_S / loop.dt_s)):
-        loop.advance(sequence(*loop.measured))
-        if sequence.balancing:
-            caught_s, caught_state = loop.t_s, loop.plant.state
-            break
-        if pumping:
-            p = wrap_angle(loop.plant.state[2] - math.pi)
-            if (p >= 0.0) != (last_p >= 0.0) and peak > math.radians(1.0):
-                amplitudes.append(peak)
-                peak = 0.0
-            peak, last_p = max(peak, abs(p)), p
-            pumping = pendulum_energy(cs.params, loop.plant.state) < 0.9 * upright
+    amplitudes = swing_up_until_caught(loop, sequence, DEADLINE_S)
+    caught_s, caught_state = (loop.t_s, loop.plant.state) if sequence.balancing else (None, None)
     if caught_s is not None:
         loop.run(sequence, BALANCE_S)
     monotonic = all(b > a for a, b in itertools.pairwise(amplitudes))

@@ -11,8 +11,7 @@ from daemon.control.catch import CatchWindow, WindowEvent, natural_frequency_rad
 from daemon.control.design_report import largest_recoverable_angle
 from daemon.control.encoders import wrap_angle
 from daemon.control.rig_setup import build_control_set
-from daemon.control.simulate import ClosedLoop, SwingUpThenBalance
-from sim_device.plant import pendulum_energy
+from daemon.control.simulate import ClosedLoop, SwingUpThenBalance, swing_up_until_caught
 from sim_device.sensors import SensorParams
 
 KESTREL, WREN = "configs/kestrel-1.toml", "configs/wren-2.toml"
@@ -139,25 +138,6 @@ SWING_UPS = [(KESTREL, "energy"), (KESTREL, "pump"), (WREN, "pump"), (WREN, "ene
 # Measured over encoder-noise seeds 0-63 (0.5 counts): caught 4.1-7.8 s after the start on every rig and law
 # (bench/bench_swing_up.py prints the table).
 CATCH_DEADLINE_S = 12.0
-
-
-def swing_up_until_caught(loop: ClosedLoop, sequence: SwingUpThenBalance, deadline_s: float) -> list[float]:
-    """Run until balance takes over; the swing amplitudes (true angle from hanging) until the last 10 % of energy."""
-    params = loop.plant.params
-    upright = 2 * params.pendulum_mass_kg * params.com_distance_m * params.gravity_mps2
-    amplitudes, peak, last_p, pumping = [], 0.0, 0.0, True
-    for _ in range(round(deadline_s / loop.dt_s)):
-        loop.advance(sequence(*loop.measured))
-        if sequence.balancing:
-            break
-        if pumping:
-            p = wrap_angle(loop.plant.state[2] - math.pi)
-            if (p >= 0.0) != (last_p >= 0.0) and peak > math.radians(1.0):
-                amplitudes.append(peak)
-                peak = 0.0
-            peak, last_p = max(peak, abs(p)), p
-            pumping = pendulum_energy(params, loop.plant.state) < 0.9 * upright
-    return amplitudes
 
 
 @pytest.mark.parametrize("path,law", SWING_UPS)

@@ -15,8 +15,9 @@ from collections.abc import Callable
 from daemon.control.balance import BalanceController
 from daemon.control.catch import CatchWindow, WindowEvent
 from daemon.control.drive_model import clamp
+from daemon.control.encoders import wrap_angle
 from daemon.control.estimation import StateEstimator
-from sim_device.plant import Plant, PlantParams
+from sim_device.plant import Plant, PlantParams, pendulum_energy
 from sim_device.sensors import SensorParams, Sensors
 
 __all__ = ["ClosedLoop", "SwingUpThenBalance"]
@@ -107,3 +108,22 @@ class SwingUpThenBalance:
             self.biggest_step_at_catch = abs(drive - self.last_drive)
         self.last_drive = drive
         return drive
+
+
+def swing_up_until_caught(loop: ClosedLoop, sequence: SwingUpThenBalance, deadline_s: float) -> list[float]:
+    """Run until balance takes over; the swing amplitudes (true angle from hanging) until the last 10 % of energy."""
+    params = loop.plant.params
+    upright = 2 * params.pendulum_mass_kg * params.com_distance_m * params.gravity_mps2
+    amplitudes, peak, last_p, pumping = [], 0.0, 0.0, True
+    for _ in range(round(deadline_s / loop.dt_s)):
+        loop.advance(sequence(*loop.measured))
+        if sequence.balancing:
+            break
+        if pumping:
+            p = wrap_angle(loop.plant.state[2] - math.pi)
+            if (p >= 0.0) != (last_p >= 0.0) and peak > math.radians(1.0):
+                amplitudes.append(peak)
+                peak = 0.0
+            peak, last_p = max(peak, abs(p)), p
+            pumping = pendulum_energy(params, loop.plant.state) < 0.9 * upright
+    return amplitudes
