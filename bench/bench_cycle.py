@@ -36,12 +36,9 @@ import argparse
 import asyncio
 import copy
 import gc
-import glob
 import math
 import os
-import re
 import socket
-import subprocess
 import sys
 import tempfile
 import time
@@ -49,6 +46,8 @@ from collections.abc import Callable
 from pathlib import Path
 
 REPO = Path(__file__).resolve().parent.parent
+from callgrind import mark, region_instructions  # bench/callgrind.py
+
 from daemon.config import PoiseConfig, parse_config
 from daemon.control.homing import Homing
 from daemon.control.rig_setup import ControlSet, build_control_set
@@ -73,7 +72,6 @@ from sim_device.plant import Plant, cart_counts, pendulum_counts
 
 BLOCK = 64  # samples between timer reads and socket drains in the replay
 REGIONS = ("harness", "cycle", "decode", "estimate", "control", "interlocks", "encode+write", "record")
-_mark = os.getppid  # callgrind dumps its counts on entering this (see --callgrind)
 
 
 def config_text(base: str, folder: str, edits: dict[str, str]) -> str:
@@ -350,10 +348,10 @@ class Replay:
         for name in REGIONS:
             block, drain = prepare[name]()
             if marked:
-                _mark()  # callgrind: the counts up to here go to the previous region's dump
+                mark()  # callgrind: the counts up to here go to the previous region's dump
             seconds[name] = self.timed(block, drain)
         if marked:
-            _mark()
+            mark()
         return seconds
 
 
@@ -383,24 +381,8 @@ def print_breakdown(title: str, figures: dict[str, float], unit: str, digits: in
 
 def callgrind_instructions(samples: int) -> tuple[dict[str, float], list[str]]:
     """Instructions per sample of each replay region, counted by callgrind in a child process."""
-    with tempfile.TemporaryDirectory() as folder:
-        out = Path(folder) / "callgrind.out"
-        command = [
-            "valgrind", "--tool=callgrind", "--dump-before=os_getppid", "--separate-threads=yes",
-            f"--callgrind-out-file={out}", sys.executable, __file__, "--replay", str(samples),
-        ]
-        # one BLAS thread: idle OpenBLAS workers spin, which is slow under valgrind
-        env = dict(os.environ, PYTHONHASHSEED="0", OPENBLAS_NUM_THREADS="1")
-        child = subprocess.run(command, capture_output=True, text=True, env=env, check=False)
-        if child.returncode != 0:
-            raise SystemExit(f"callgrind run failed:\n{child.stderr[-2000:]}")
-        trips = [line for line in child.stdout.splitlines() if line.startswith("trip:")]
-        # main thread's dumps in order: start-up, then one per region, then the rest
-        dumps = sorted(glob.glob(f"{out}.*-01"), key=lambda p: int(p.rsplit(".", 1)[1].split("-")[0]))
-        totals = []
-        for path in dumps[1:len(REGIONS) + 1]:
-            match = re.search(r"^(?:summary|totals): (\d+)", Path(path).read_text(), re.MULTILINE)
-            totals.append(int(match.group(1)))
+    totals, stdout = region_instructions([__file__, "--replay", str(samples)], len(REGIONS))
+    trips = [line for line in stdout.splitlines() if line.startswith("trip:")]
     per_sample = {name: total / samples for name, total in zip(REGIONS, totals)}
     per_sample["cycle"] -= per_sample.pop("harness")
     return per_sample, trips
