@@ -12,7 +12,11 @@
    estimate, control, interlocks, encode+write, record); "glue" is the whole
    cycle less the stages (the os.read, bookkeeping, the cycle's own timers;
    thread_time counts the kernel's side of the read too). Timers are read
-   once per block of samples, never per sample.
+   once per block of samples, never per sample. Last, for scale, a bare
+   loop over the same frames and socket: os.read -> decode -> a fixed LQR
+   gain on positions and plain differences -> encode -> os.write, with no
+   estimator, mode logic, interlocks, timers, link bookkeeping or recording:
+   the floor the protocol and the interpreter set on this machine.
 3. Read->write latency: the daemon in this process, the simulated rig in real
    time at 1 kHz in another process (`poise sim --pty`, the Wren-2 rig), the
    rig idle (each frame answered with a zero drive: the same read, decode,
@@ -71,7 +75,9 @@ from protocol import (
 from sim_device.plant import Plant, cart_counts, pendulum_counts
 
 BLOCK = 64  # samples between timer reads and socket drains in the replay
-REGIONS = ("harness", "cycle", "decode", "estimate", "control", "interlocks", "encode+write", "record")
+REGIONS = (
+    "harness", "cycle", "decode", "estimate", "control", "interlocks", "encode+write", "record", "bare loop",
+)
 
 
 def config_text(base: str, folder: str, edits: dict[str, str]) -> str:
@@ -330,6 +336,31 @@ class Replay:
 
         return block, None
 
+    def bare_loop(self) -> tuple[Callable, socket.socket]:
+        """The floor: read, decode, ``u = -K s`` on counts and differences, encode, write."""
+        controls = self._controls()
+        k0, k1, k2, k3 = (float(k) for k in controls.design.k)
+        scaling = controls.estimator.scaling
+        m_per_count, rad_per_count = scaling.cart_quantum_m, scaling.pendulum_quantum_rad
+        rate = float(self.config.sampling.rate_hz)
+        read, write, feed = os.read, os.write, FrameDecoder(LinkStats()).feed
+        cycle_fd, peer_fd, frames = self.cycle_end.fileno(), self.peer.fileno(), self.frames
+        previous = [0.0, 0.0]
+
+        def block(start: int, stop: int) -> None:
+            x0, th0 = previous
+            for i in range(start, stop):
+                write(peer_fd, frames[i])
+                for tm in feed(read(cycle_fd, 65536)):
+                    x = tm.cart_counts * m_per_count
+                    th = tm.pendulum_counts * rad_per_count - math.pi
+                    u = -(k0 * x + k1 * (x - x0) * rate + k2 * th + k3 * (th - th0) * rate)
+                    x0, th0 = x, th
+                    write(cycle_fd, encode_drive(i & 0xFFFF, u, tm.seq))
+            previous[:] = x0, th0
+
+        return block, self.peer
+
     def run(self, marked: bool = False) -> dict[str, float]:
         """CPU seconds of each region in REGIONS; ``marked`` brackets each with a callgrind dump."""
         states = self.estimates()
@@ -343,6 +374,7 @@ class Replay:
             "interlocks": lambda: self.interlocks(states, drives),
             "encode+write": lambda: self.encode_and_write(drives),
             "record": lambda: self.record(states, drives),
+            "bare loop": self.bare_loop,
         }
         seconds = {}
         for name in REGIONS:
@@ -365,27 +397,34 @@ def replay_cpu_us(folder: str, samples: int, marked: bool = False) -> tuple[dict
         seconds = replay.run(marked)
     finally:
         replay.close()
-    per_sample = {name: s * 1e6 / samples for name, s in seconds.items()}
-    per_sample["cycle"] -= per_sample.pop("harness")
-    return per_sample, replay.trips
+    return without_harness({name: s * 1e6 / samples for name, s in seconds.items()}), replay.trips
+
+
+def without_harness(per_sample: dict[str, float]) -> dict[str, float]:
+    """Take the replay's own cost (writing telemetry into the socket) out of the regions that include it."""
+    harness = per_sample.pop("harness")
+    per_sample["cycle"] -= harness
+    per_sample["bare loop"] -= harness
+    return per_sample
 
 
 def print_breakdown(title: str, figures: dict[str, float], unit: str, digits: int) -> None:
-    stages = {name: value for name, value in figures.items() if name != "cycle"}
+    stages = {name: value for name, value in figures.items() if name not in ("cycle", "bare loop")}
     print(title)
     print(f"   whole cycle (read .. record)  {figures['cycle']:10.{digits}f} {unit}")
     for name, value in stages.items():
         print(f"   {name:<28}  {value:10.{digits}f} {unit}")
     print(f"   {'glue (whole - stages)':<28}  {figures['cycle'] - sum(stages.values()):10.{digits}f} {unit}")
+    bare = figures["bare loop"]
+    print(f"   for scale, the bare loop      {bare:10.{digits}f} {unit}  (read, decode, u = -K s, encode,"
+          f" write; the whole cycle is {figures['cycle'] / bare:.1f}x this)")
 
 
 def callgrind_instructions(samples: int) -> tuple[dict[str, float], list[str]]:
     """Instructions per sample of each replay region, counted by callgrind in a child process."""
     totals, stdout = region_instructions([__file__, "--replay", str(samples)], len(REGIONS))
     trips = [line for line in stdout.splitlines() if line.startswith("trip:")]
-    per_sample = {name: total / samples for name, total in zip(REGIONS, totals)}
-    per_sample["cycle"] -= per_sample.pop("harness")
-    return per_sample, trips
+    return without_harness({name: total / samples for name, total in zip(REGIONS, totals)}), trips
 
 
 # ---------------------------------------------------------------------- 3. latency
