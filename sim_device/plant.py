@@ -61,7 +61,7 @@ from sim_device.drive import (
     effective_command,
     reflected_mass_kg,
 )
-from sim_device.track import TrackParams, limit_switches
+from sim_device.track import TrackParams, limit_switches, switch_trip_m
 
 __all__ = [
     "DriveParams",
@@ -260,6 +260,11 @@ class Plant:
     ``step(command, dt_s)`` holds the command for ``dt_s`` and integrates it in
     ``substeps`` RK4 sub-steps. Pure float arithmetic and no randomness: the same
     calls give bit-identical states. End stops are checked after every sub-step.
+
+    The state is in four attributes, ``x_m``, ``v_mps``, ``theta_rad`` and
+    ``omega_radps`` (also together as :attr:`state`): read them freely, change
+    them only through :meth:`set_state`, :meth:`hold_cart`, :meth:`apply_impulse`
+    and :meth:`step`, which keep the cart on the track.
     """
 
     def __init__(
@@ -277,24 +282,30 @@ class Plant:
         self._ml = params.pendulum_mass_kg * params.com_distance_m
         self._jp = params.pivot_inertia_kgm2
         self._mt = params.moving_mass_kg
+        self._half_m = params.track.half_length_m
+        self._switch_trip_m = switch_trip_m(params.track)
+        self._stiction = params.cart_coulomb_n > 0.0
+        self._ml_over_jp = self._ml / self._jp
+        self._command = math.nan  # the command _f_rest was worked out for (NaN: none yet)
+        self._f_rest = 0.0
         self._held = False
-        self._end_stop_touched = False
+        self.end_stop_touched = False  # whether the cart was against an end stop in the last step
         self.set_state(state0)
 
     # -- state ---------------------------------------------------------------
 
     @property
     def state(self) -> State:
-        return self._x, self._v, self._th, self._w
+        return self.x_m, self.v_mps, self.theta_rad, self.omega_radps
 
     def set_state(self, state: State) -> None:
         """Place the rig in ``state`` (clamped to the track; cart still if held)."""
         x, v, th, w = (float(value) for value in state)
-        half = self.params.track.half_length_m
-        self._x = min(max(x, -half), half)
-        self._v = 0.0 if self._held else v
-        self._th = th
-        self._w = w
+        half = self._half_m
+        self.x_m = min(max(x, -half), half)
+        self.v_mps = 0.0 if self._held else v
+        self.theta_rad = th
+        self.omega_radps = w
 
     @property
     def held(self) -> bool:
@@ -306,19 +317,15 @@ class Plant:
         Clamping a moving cart stops it like an end stop does (the pendulum
         keeps its momentum about the pivot).
         """
-        if held and self._v != 0.0:
+        if held and self.v_mps != 0.0:
             self._stop_cart()
         self._held = held
 
     @property
-    def end_stop_touched(self) -> bool:
-        """Whether the cart was against an end stop at any time in the last step."""
-        return self._end_stop_touched
-
-    @property
     def limit_switches(self) -> tuple[bool, bool]:
-        """``(negative-end, positive-end)`` limit switch states now."""
-        return limit_switches(self.params.track, self._x)
+        """``(negative-end, positive-end)`` limit switch states now (as :func:`limit_switches`)."""
+        x, trip = self.x_m, self._switch_trip_m
+        return x <= -trip, x >= trip
 
     def pendulum_energy(self) -> float:
         return pendulum_energy(self.params, self.state)
@@ -334,62 +341,44 @@ class Plant:
         Solves the impulse-momentum equations of the constrained system (module
         docstring). A held cart takes the cart's share and stays still.
         """
-        mlc = self._ml * math.cos(self._th)
+        mlc = self._ml * math.cos(self.theta_rad)
         p_x = pendulum_ns + cart_ns
-        p_th = -self.params.com_distance_m * math.cos(self._th) * pendulum_ns
+        p_th = -self.params.com_distance_m * math.cos(self.theta_rad) * pendulum_ns
         if self._held:
-            self._w += p_th / self._jp
+            self.omega_radps += p_th / self._jp
             return
         det = self._mt * self._jp - mlc * mlc
-        self._v += (self._jp * p_x + mlc * p_th) / det
-        self._w += (mlc * p_x + self._mt * p_th) / det
+        self.v_mps += (self._jp * p_x + mlc * p_th) / det
+        self.omega_radps += (mlc * p_x + self._mt * p_th) / det
 
     def _stop_cart(self) -> None:
         """Stop the cart dead, keeping the pendulum's generalised momentum ``J w - m l c v``."""
-        self._w -= self._ml * math.cos(self._th) * self._v / self._jp
-        self._v = 0.0
+        self.omega_radps -= self._ml * math.cos(self.theta_rad) * self.v_mps / self._jp
+        self.v_mps = 0.0
 
     # -- integration -------------------------------------------------------------
 
     def step(self, command: float, dt_s: float) -> None:
-        """Advance ``dt_s`` seconds with the drive ``command`` (volts or newtons) held."""
+        """Advance ``dt_s`` seconds with the drive ``command`` (volts or newtons) held.
+
+        The simulated rig calls this once per sample, so the free cart's RK4 is
+        written out here rather than in a helper, every constant is worked out in
+        ``__init__``, and the drive force is worked out again only when the command
+        changes: each Python call costs about as much as a few lines of arithmetic.
+        """
         if not dt_s > 0.0:
             raise ValueError(f"Plant.step: dt_s must be > 0 (got {dt_s!r})")
-        f_rest = self._gain * effective_command(self.params.drive, command)
+        if command != self._command:
+            self._command = command
+            self._f_rest = self._gain * effective_command(self.params.drive, command)
         h = dt_s / self.substeps
         if self._held:
             self._step_held(h)
-        else:
-            self._step_free(f_rest, h)
-
-    def _step_held(self, h: float) -> None:
-        """Pendulum alone on a clamped cart: ``J alpha = m g l sin th - b_p w``."""
-        mgl = self._ml * self.params.gravity_mps2
-        bp = self.params.pivot_viscous_nms_per_rad
-        jp = self._jp
-        sin = math.sin
-        th, w = self._th, self._w
-        h2, h6 = 0.5 * h, h / 6.0
-        for _ in range(self.substeps):
-            al1 = (mgl * sin(th) - bp * w) / jp
-            w2 = w + h2 * al1
-            al2 = (mgl * sin(th + h2 * w) - bp * w2) / jp
-            w3 = w + h2 * al2
-            al3 = (mgl * sin(th + h2 * w2) - bp * w3) / jp
-            w4 = w + h * al3
-            al4 = (mgl * sin(th + h * w3) - bp * w4) / jp
-            th += h6 * (w + 2.0 * (w2 + w3) + w4)
-            w += h6 * (al1 + 2.0 * (al2 + al3) + al4)
-        self._th, self._w = th, w
-        self._end_stop_touched = abs(self._x) >= self.params.track.half_length_m
-
-    def _step_free(self, f_rest: float, h: float) -> None:
-        accel = self._accel
+            return
+        f_rest, accel = self._f_rest, self._accel
         sin, cos = math.sin, math.cos
-        half = self.params.track.half_length_m
-        stiction = self.params.cart_coulomb_n > 0.0
-        ml_over_jp = self._ml / self._jp
-        x, v, th, w = self._x, self._v, self._th, self._w
+        half, stiction, ml_over_jp = self._half_m, self._stiction, self._ml_over_jp
+        x, v, th, w = self.x_m, self.v_mps, self.theta_rad, self.omega_radps
         h2, h6 = 0.5 * h, h / 6.0
         touched = False
         for _ in range(self.substeps):
@@ -415,5 +404,26 @@ class Plant:
             if stop:  # as _stop_cart: keep J w - m l cos(th) v
                 w -= ml_over_jp * cos(th) * v
                 v = 0.0
-        self._x, self._v, self._th, self._w = x, v, th, w
-        self._end_stop_touched = touched
+        self.x_m, self.v_mps, self.theta_rad, self.omega_radps = x, v, th, w
+        self.end_stop_touched = touched
+
+    def _step_held(self, h: float) -> None:
+        """Pendulum alone on a clamped cart: ``J alpha = m g l sin th - b_p w``."""
+        mgl = self._ml * self.params.gravity_mps2
+        bp = self.params.pivot_viscous_nms_per_rad
+        jp = self._jp
+        sin = math.sin
+        th, w = self.theta_rad, self.omega_radps
+        h2, h6 = 0.5 * h, h / 6.0
+        for _ in range(self.substeps):
+            al1 = (mgl * sin(th) - bp * w) / jp
+            w2 = w + h2 * al1
+            al2 = (mgl * sin(th + h2 * w) - bp * w2) / jp
+            w3 = w + h2 * al2
+            al3 = (mgl * sin(th + h2 * w2) - bp * w3) / jp
+            w4 = w + h * al3
+            al4 = (mgl * sin(th + h * w3) - bp * w4) / jp
+            th += h6 * (w + 2.0 * (w2 + w3) + w4)
+            w += h6 * (al1 + 2.0 * (al2 + al3) + al4)
+        self.theta_rad, self.omega_radps = th, w
+        self.end_stop_touched = abs(self.x_m) >= self._half_m

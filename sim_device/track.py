@@ -6,9 +6,10 @@ is active when ``|x| >= length_m/2 - switch_inset_m`` on that side.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
-__all__ = ["TrackParams", "limit_switches"]
+__all__ = ["TrackParams", "limit_switches", "switch_trip_m"]
 
 
 @dataclass(frozen=True)
@@ -31,9 +32,14 @@ class TrackParams:
         return self.length_m / 2
 
 
+def switch_trip_m(track: TrackParams) -> float:
+    """How far from the centre either limit switch trips; infinity on a track without switches."""
+    if not track.has_limit_switches:
+        return math.inf
+    return track.length_m / 2 - track.switch_inset_m
+
+
 def limit_switches(track: TrackParams, x_m: float) -> tuple[bool, bool]:
     """``(negative-end switch active, positive-end switch active)`` at cart position ``x_m``."""
-    if not track.has_limit_switches:
-        return False, False
-    trip_m = track.length_m / 2 - track.switch_inset_m
+    trip_m = switch_trip_m(track)
     return x_m <= -trip_m, x_m >= trip_m
