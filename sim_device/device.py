@@ -84,6 +84,7 @@ from sim_device.faults import (
 )
 from sim_device.plant import Plant, applied_command
 from sim_device.sensors import Sensors
+from sim_device.track import switch_trip_m
 from sim_device.transports import Transport
 
 __all__ = ["FIRMWARE_VERSION", "SAMPLE_RATE_RANGE_HZ", "DeviceIdentity", "SimulatedDevice"]
@@ -154,6 +155,7 @@ class SimulatedDevice:
         self.supply_v = NAN if supply_v is None else supply_v  # as measured; NaN: not fitted
         self._jittery = sensors.jittery
         self._chattering = schedule.chattering
+        self._switch_trip_m = switch_trip_m(plant.params.track)
         self._base_status = ST_WATCHDOG_ACTIVE | (ST_LOCKSTEP if clock.lockstep else 0)
 
         self._power_up()
@@ -257,30 +259,32 @@ class SimulatedDevice:
     # -- incoming ------------------------------------------------------------------
 
     def on_bytes(self, data: bytes) -> None:
+        """Act on every message in ``data``.
+
+        A Drive comes once per sample, so it is handled here inline; in lockstep the one
+        answering the latest sample has the clock take the next sample at once.
+        """
         for message in self.decoder.feed(data):
-            if type(message) is Drive:
-                self._on_drive(message)
-            else:
+            if type(message) is not Drive:
                 self._on_command(message)
+                continue
+            if not self.configured:
+                continue
+            _seq, drive, answers_seq = message
+            limit = self._drive_limit
+            if not -limit <= drive <= limit:  # to clamp, or NaN or infinite (taken as 0)
+                drive = applied_command(self._drive_params, drive) if math.isfinite(drive) else 0.0
+            self._pending_drive = drive
+            self._last_feed_us = self.t_us
+            behind = (self._sample_seq - answers_seq) & 0xFFFF
+            if behind == 0:
+                self.clock.command_received()
+            elif behind < 0x8000:
+                self.late_commands = (self.late_commands + 1) & 0xFFFF
 
     def _on_rejected(self, frame: RejectedFrame) -> None:
         """A well-framed frame the decoder refused for its type or payload length."""
         self._answer(frame.type_id, frame.seq, frame.result)
-
-    def _on_drive(self, message: Drive) -> None:
-        if not self.configured:
-            return
-        _seq, drive, answers_seq = message
-        limit = self._drive_limit
-        if not -limit <= drive <= limit:  # to clamp, or NaN or infinite (taken as 0)
-            drive = applied_command(self._drive_params, drive) if math.isfinite(drive) else 0.0
-        self._pending_drive = drive
-        self._last_feed_us = self.t_us
-        behind = (self._sample_seq - answers_seq) & 0xFFFF
-        if behind == 0:
-            self.clock.command_received()
-        elif behind < 0x8000:
-            self.late_commands = (self.late_commands + 1) & 0xFFFF
 
     def _on_command(self, message: Message) -> None:
         kind = type(message)
@@ -348,46 +352,48 @@ class SimulatedDevice:
     # -- the sample ----------------------------------------------------------------
 
     def take_sample(self) -> None:
-        """One sample: integrate to the sample instant, run faults and watchdog, latch, report."""
+        """One sample: integrate to the sample instant, run faults and watchdog, latch, report.
+
+        In lockstep this runs once per Drive received, so it is the simulator's speed limit:
+        the Telemetry frame is put together here (same bytes as ``encode(Telemetry(...))``)
+        from the plant's state attributes, with no helper calls beyond the plant's step, the
+        encoder reading and the frame encoder; fault events and jitter cost nothing unless
+        there are any.
+        """
         if self._first_sample:
             self._first_sample = False
-            dt_us = 0
             self._nominal_next_us = self.t_us
         else:
-            self._nominal_next_us += self._period_us
-            sample_us = self._nominal_next_us
+            self._nominal_next_us = sample_us = self._nominal_next_us + self._period_us
             if self._jittery:
                 sample_us += self.sensors.sample_offset_us(self._period_us)
             dt_us = sample_us - self.t_us
-        if dt_us > 0:
-            self.plant.step(self.drive_output, dt_us * 1e-6)
-            self.t_us += dt_us
-            self.sim_time_us += dt_us
+            if dt_us > 0:
+                self.plant.step(self.drive_output, dt_us * 1e-6)
+                self.t_us += dt_us
+                self.sim_time_us += dt_us
         if self.sim_time_us >= self.schedule.next_at_us:
             for event in self.schedule.due(self.sim_time_us):
                 self.apply_fault(event)
                 if not self.configured:  # a reset: this sample never happened
                     return
-        if self.t_us - self._last_feed_us > self.watchdog_ms * 1000:
-            self._latch_fault(F_WATCHDOG, (self.t_us - self._last_feed_us) * 1e-3)
+        t_us = self.t_us
+        if t_us - self._last_feed_us > self.watchdog_ms * 1000:
+            self._latch_fault(F_WATCHDOG, (t_us - self._last_feed_us) * 1e-3)
         if not self.armed:
             self.drive_output = 0.0
         elif self._pending_drive is not None:
             self.drive_output = self._pending_drive
         self._pending_drive = None
         self._sample_seq = seq = (self._sample_seq + 1) & 0xFFFF
-        self._send(self._telemetry_frame(seq))
 
-    def _telemetry_frame(self, seq: int) -> bytes:
-        """The whole Telemetry frame for this sample (same bytes as ``encode(Telemetry(...))``)."""
         plant = self.plant
-        x_m, _v, theta_rad, _w = plant.state
-        cart, pendulum = self.sensors.encoder_counts(x_m, theta_rad)
+        x_m = plant.x_m
+        cart, pendulum = self.sensors.encoder_counts(x_m, plant.theta_rad)
         switches = self.stuck_switches
-        neg, pos = plant.limit_switches
-        if neg:
+        if x_m <= -self._switch_trip_m:  # the limit switches (sim_device.track)
             switches |= SW_LIMIT_NEG
-        if pos:
+        if x_m >= self._switch_trip_m:
             switches |= SW_LIMIT_POS
         if self._chattering:
             switches ^= self.schedule.chatter()
@@ -395,9 +401,9 @@ class SimulatedDevice:
             switches |= SW_END_STOP
         if self.estop_pressed:
             switches |= SW_ESTOP_BUTTON
-        return encode_telemetry(
+        frame = encode_telemetry(
             seq,
-            self.t_us,
+            t_us,
             cart,
             pendulum,
             switches,
@@ -408,6 +414,8 @@ class SimulatedDevice:
             self.supply_v,
             self.late_commands,
         )
+        if self.sim_time_us >= self._stall_until_us:  # as _send
+            self.transport.write(frame)
 
     # -- faults and the operator's button ------------------------------------------
 

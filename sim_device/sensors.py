@@ -53,9 +53,12 @@ class SensorParams:
             raise ValueError(f"sensors.supply_v must be > 0 (got {self.supply_v!r})")
 
 
+I32_MIN, I32_MAX = -0x8000_0000, 0x7FFF_FFFF
+
+
 def wrap_i32(value: int) -> int:
     """``value`` as a signed 32-bit counter would hold it."""
-    if -0x8000_0000 <= value <= 0x7FFF_FFFF:
+    if I32_MIN <= value <= I32_MAX:
         return value
     return (value + 0x8000_0000) % 0x1_0000_0000 - 0x8000_0000
 
@@ -69,6 +72,8 @@ class Sensors:
         self.cart_offset_counts = 0
         self.pendulum_offset_counts = 0
         self.cart_dead_at_m: float | None = None
+        self._cart_counts_per_m = params.cart_counts_per_m
+        self._pendulum_counts_per_rev = params.pendulum_counts_per_rev
         self._cart_noise_m = params.cart_noise_counts / params.cart_counts_per_m
         self._pendulum_noise_rad = params.pendulum_noise_counts * TWO_PI / params.pendulum_counts_per_rev
 
@@ -101,11 +106,11 @@ class Sensors:
             theta_rad += self._rng.gauss(0.0, self._pendulum_noise_rad)
         if self.cart_dead_at_m is not None:
             x_m = self.cart_dead_at_m
-        params = self.params
-        return (
-            wrap_i32(cart_counts(x_m, params.cart_counts_per_m) + self.cart_offset_counts),
-            wrap_i32(pendulum_counts(theta_rad, params.pendulum_counts_per_rev) + self.pendulum_offset_counts),
-        )
+        cart = cart_counts(x_m, self._cart_counts_per_m) + self.cart_offset_counts
+        pendulum = pendulum_counts(theta_rad, self._pendulum_counts_per_rev) + self.pendulum_offset_counts
+        if I32_MIN <= cart <= I32_MAX and I32_MIN <= pendulum <= I32_MAX:  # wrap_i32 has nothing to do
+            return cart, pendulum
+        return wrap_i32(cart), wrap_i32(pendulum)
 
     def sample_offset_us(self, period_us: int) -> int:
         """How far (µs) the next sample is taken from its nominal time.

@@ -221,8 +221,8 @@ class InProcessPipe:
         self.device_end.peer = self.host_end
         self.host_end.peer = self.device_end
 
-    def _post(self, receiver: PipeEnd, data: bytes) -> None:
-        self._queue.append((receiver, data))
+    def _schedule_drain(self) -> None:
+        """Have the loop drain the queue soon, unless that is arranged or there is no loop yet."""
         if not self._scheduled and self._loop is not None:
             self._scheduled = True
             self._loop.call_soon(self._drain)
@@ -231,17 +231,17 @@ class InProcessPipe:
         if self._loop is not None and self._loop is not loop:
             raise RuntimeError("both ends of an in-process pipe must use the same event loop")
         self._loop = loop
-        if self._queue and not self._scheduled:
-            self._scheduled = True
-            loop.call_soon(self._drain)
+        if self._queue:
+            self._schedule_drain()
 
     def _drain(self) -> None:
         queue = self._queue
+        popleft = queue.popleft
         held: list[tuple[PipeEnd, bytes]] = []
         for _ in range(self.burst):
             if not queue:
                 break
-            receiver, data = queue.popleft()
+            receiver, data = popleft()
             on_bytes = receiver.on_bytes
             if on_bytes is None:
                 if not receiver.closed:
@@ -260,6 +260,7 @@ class PipeEnd(Transport):
 
     def __init__(self, pipe: InProcessPipe, name: str):
         self._pipe = pipe
+        self._queue = pipe._queue
         self._name = name
         self.peer: PipeEnd | None = None
         self.on_bytes: OnBytes | None = None
@@ -275,12 +276,15 @@ class PipeEnd(Transport):
         self._pipe._attach(loop)
 
     def write(self, data: bytes) -> None:
+        """Queue ``data`` for the peer (one FIFO for both directions; see :class:`InProcessPipe`)."""
         peer = self.peer
         assert peer is not None
         if self.closed or peer.closed:
             self.tx_bytes_dropped += len(data)
             return
-        self._pipe._post(peer, data)
+        self._queue.append((peer, data))
+        if not self._pipe._scheduled:
+            self._pipe._schedule_drain()
 
     def close(self) -> None:
         self.closed = True
