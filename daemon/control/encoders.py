@@ -1,7 +1,7 @@
 """Encoder counts to cart position and pendulum angle.
 
-Hardware counters are signed 32-bit and wrap; :class:`CounterUnwrapper` turns
-successive readings into one unbounded count by taking each step as the
+Hardware counters are signed 32-bit and wrap; :class:`EncoderScaling` turns
+successive readings of each into one unbounded count by taking each step as the
 shortest signed 32-bit difference (valid while the true change between two
 samples is below 2**31 counts, true of any real encoder at these sample rates).
 
@@ -15,12 +15,13 @@ from __future__ import annotations
 
 import math
 
-__all__ = ["CounterUnwrapper", "EncoderScaling", "wrap_angle"]
+__all__ = ["EncoderScaling", "wrap_angle"]
 
 TWO_PI = 2.0 * math.pi
 _PI = math.pi
 _SPAN = 1 << 32
 _HALF_SPAN = 1 << 31
+_STEP_MIN = -_HALF_SPAN  # a step outside [_STEP_MIN, _HALF_SPAN) means the counter wrapped
 
 
 def wrap_angle(theta_rad: float) -> float:
@@ -31,27 +32,13 @@ def wrap_angle(theta_rad: float) -> float:
     return wrapped - math.pi
 
 
-class CounterUnwrapper:
-    """Accumulates a wrapping signed 32-bit counter into an unbounded Python int."""
+def _shortest_step(step: int) -> int:
+    """A counter step of a wrapped signed 32-bit counter as the shortest signed difference.
 
-    __slots__ = ("_last", "_total")
-
-    def __init__(self, first_reading: int = 0):
-        self._last = first_reading
-        self._total = first_reading
-
-    def update(self, reading: int) -> int:
-        step = reading - self._last
-        if not -_HALF_SPAN <= step < _HALF_SPAN:  # wrapped (rare): the modulo needs two-digit ints
-            step = (step + _HALF_SPAN) % _SPAN - _HALF_SPAN
-        self._last = reading
-        total = self._total + step
-        self._total = total
-        return total
-
-    @property
-    def total(self) -> int:
-        return self._total
+    Only called when the plain difference is out of range (the counter wrapped): the modulo
+    works on two-digit Python ints, slower than the in-range comparison that precedes it.
+    """
+    return (step + _HALF_SPAN) % _SPAN - _HALF_SPAN
 
 
 class EncoderScaling:
@@ -62,9 +49,11 @@ class EncoderScaling:
     """
 
     __slots__ = (
-        "_cart",
+        "_cart_last",
+        "_cart_total",
         "_m_per_count",
-        "_pendulum",
+        "_pendulum_last",
+        "_pendulum_total",
         "_rad_per_count",
         "cart_counts_per_m",
         "cart_offset_counts",
@@ -78,17 +67,29 @@ class EncoderScaling:
         self.cart_offset_counts = 0
         self._m_per_count = 1.0 / cart_counts_per_m
         self._rad_per_count = TWO_PI / pendulum_counts_per_rev
-        self._cart = CounterUnwrapper(first_cart_reading)
-        self._pendulum = CounterUnwrapper(first_pendulum_reading)
+        self._cart_last = self._cart_total = first_cart_reading
+        self._pendulum_last = self._pendulum_total = first_pendulum_reading
 
     def update(self, cart_reading: int, pendulum_reading: int) -> tuple[float, float]:
-        """``(x_m, theta_rad)`` from this sample's raw counter readings (theta not wrapped)."""
-        cart = self._cart.update(cart_reading) - self.cart_offset_counts
-        return cart * self._m_per_count, _PI + self._pendulum.update(pendulum_reading) * self._rad_per_count
+        """``(x_m, theta_rad)`` from this sample's raw counter readings (theta not wrapped).
+
+        Both counters are unwrapped here, inline: this runs every sample.
+        """
+        step = cart_reading - self._cart_last
+        if not _STEP_MIN <= step < _HALF_SPAN:
+            step = _shortest_step(step)
+        self._cart_last = cart_reading
+        self._cart_total = cart = self._cart_total + step
+        step = pendulum_reading - self._pendulum_last
+        if not _STEP_MIN <= step < _HALF_SPAN:
+            step = _shortest_step(step)
+        self._pendulum_last = pendulum_reading
+        self._pendulum_total = pendulum = self._pendulum_total + step
+        return (cart - self.cart_offset_counts) * self._m_per_count, _PI + pendulum * self._rad_per_count
 
     def raw_x_m(self) -> float:
         """Cart position of the last sample without the homing offset (for homing itself)."""
-        return self._cart.total * self._m_per_count
+        return self._cart_total * self._m_per_count
 
     def set_centre_at(self, raw_x_m: float) -> None:
         """Declare the raw cart position ``raw_x_m`` (see :meth:`raw_x_m`) the track centre."""

@@ -11,8 +11,11 @@ theta is wrapped to (-pi, pi]. Velocities come from one of two estimators
     the steady-state Kalman filter on the linear model about upright
     (:mod:`.kalman`), used while the pendulum is within ``kalman_region_deg``
     of upright, where that model holds; elsewhere the filtered difference is
-    used, and the Kalman filter restarts from the filtered-difference estimate
-    each time the pendulum enters the region (so the estimate does not jump).
+    used. The two hand over without a jump in the estimate: the Kalman filter
+    starts from the filtered-difference estimate each time the pendulum enters
+    the region, and the filtered differences, idle while the Kalman filter runs
+    (their results would be thrown away), restart from its rates, at the
+    measured positions, on the sample the pendulum leaves it.
 
 Noise/lag trade-off, measured on the plant model balancing with the LQR
 (``tests/test_control_estimation.py::test_noise_and_lag_figures``, run with
@@ -50,7 +53,11 @@ _fmod = math.fmod
 
 
 class StateEstimator:
-    """Encoder readings and the applied drive to the state vector, once per sample."""
+    """Encoder readings and the applied drive to the state vector, once per sample.
+
+    Exactly one velocity estimator runs each sample: the Kalman filter inside its region,
+    the filtered differences outside it (see the module docstring for the hand-over).
+    """
 
     __slots__ = (
         "_cart_rate",
@@ -60,7 +67,6 @@ class StateEstimator:
         "_pendulum_rate",
         "_region_rad",
         "scaling",
-        "theta_unwrapped_rad",
     )
 
     def __init__(
@@ -75,9 +81,8 @@ class StateEstimator:
         self._cart_rate = FilteredDifference(cutoff_hz, dt_s)
         self._pendulum_rate = FilteredDifference(cutoff_hz, dt_s)
         self._kalman = SteadyStateKalman(kalman) if kalman is not None else None
-        self._region_rad = kalman_region_rad
+        self._region_rad = kalman_region_rad if kalman is not None else 0.0  # 0: the region is empty
         self._kalman_active = False
-        self.theta_unwrapped_rad = math.pi
         self._offset_counts = scaling.cart_offset_counts
 
     def reset(self, cart_reading: int, pendulum_reading: int,
@@ -87,36 +92,45 @@ class StateEstimator:
         self._cart_rate.reset(x_m, v_mps)
         self._pendulum_rate.reset(theta, omega_radps)
         self._kalman_active = False
-        self.theta_unwrapped_rad = theta
         return x_m, v_mps, wrap_angle(theta), omega_radps
 
     def update(self, cart_reading: int, pendulum_reading: int, applied_drive: float) -> State:
+        """This sample's state estimate; ``applied_drive`` is the drive held since the last sample."""
         scaling = self.scaling
         if scaling.cart_offset_counts != self._offset_counts:  # homed: new origin, same motion
-            shift = (self._offset_counts - scaling.cart_offset_counts) * scaling.cart_quantum_m
-            self._cart_rate.shift(shift)
-            self._offset_counts = scaling.cart_offset_counts
-            self._kalman_active = False
+            self._move_origin()
         x_m, theta = scaling.update(cart_reading, pendulum_reading)
-        self.theta_unwrapped_rad = theta
-        v = self._cart_rate.update(x_m)
-        w = self._pendulum_rate.update(theta)
         theta_w = _fmod(theta + _PI, TWO_PI)  # wrap_angle(theta), inlined: one call less per sample
         if theta_w <= 0.0:
             theta_w += TWO_PI
         theta_w -= _PI
-        kalman = self._kalman
-        if kalman is None:
-            return x_m, v, theta_w, w
         region = self._region_rad
-        if -region < theta_w < region:
-            if not self._kalman_active:
-                kalman.reset((x_m, v, theta_w, w))
-                self._kalman_active = True
-                return x_m, v, theta_w, w
-            return kalman.update(x_m, theta_w, applied_drive)
-        self._kalman_active = False
+        if self._kalman_active:
+            state = self._kalman.update(x_m, theta_w, applied_drive)
+            if -region < theta_w < region:
+                return state
+            # Leaving the region: the filtered differences take over from the Kalman filter's rates.
+            self._kalman_active = False
+            v, w = state[1], state[3]
+            self._cart_rate.reset(x_m, v)
+            self._pendulum_rate.reset(theta, w)
+            return x_m, v, theta_w, w
+        v = self._cart_rate.update(x_m)
+        w = self._pendulum_rate.update(theta)
+        if -region < theta_w < region:  # entering the region: the Kalman filter takes over from here
+            self._kalman.reset((x_m, v, theta_w, w))
+            self._kalman_active = True
         return x_m, v, theta_w, w
+
+    def _move_origin(self) -> None:
+        """Follow a new homing offset: shift the running position filter, keep its rates."""
+        scaling = self.scaling
+        shift_m = (self._offset_counts - scaling.cart_offset_counts) * scaling.cart_quantum_m
+        self._offset_counts = scaling.cart_offset_counts
+        if self._kalman_active:
+            self._kalman.shift_x(shift_m)
+        else:
+            self._cart_rate.shift(shift_m)
 
     @property
     def kalman_active(self) -> bool:

@@ -91,6 +91,16 @@ class SteadyStateKalman:
         """Start from ``state`` (e.g. the filtered-difference estimate) so the output does not jump."""
         self._s = tuple(float(v) for v in state)
 
+    def shift_x(self, offset_m: float) -> None:
+        """Move the origin of the cart position by ``offset_m`` (homing) without disturbing the estimate.
+
+        Exact because the model is translation invariant along the track: the cart position feeds
+        no other state (the first column of ``Ad`` is ``[1, 0, 0, 0]``), so shifting the estimate
+        and every later measurement by the same offset shifts every later estimate by it too.
+        """
+        s0, s1, s2, s3 = self._s
+        self._s = (s0 + offset_m, s1, s2, s3)
+
     def update(self, x_m: float, theta_rad: float, applied_drive: float) -> Vector4:
         """The state estimate after this sample's measurement; ``applied_drive`` held since the last one."""
         s0, s1, s2, s3 = self._s
