@@ -13,9 +13,11 @@ estimator still steps through them, so its rates stay right); the cycle never
 bursts to catch up.
 
 Timing: ``t0`` is taken as soon as ``os.read`` returns, ``t_write`` right
-after ``os.write``; their difference is the read->write latency, kept per
-sample with the cost of each stage in :class:`TimingRings` and fed to the
-loop-overrun interlock. A rig in lockstep (status bit ST_LOCKSTEP) waits for
+after ``os.write``; their difference is the read->write latency, recorded
+with the sample and fed to the loop-overrun interlock. The clock is also read
+between stages, and the seven readings of each sample go into
+:class:`TimingRings` as one tuple (stage costs are their differences,
+computed when status asks). A rig in lockstep (status bit ST_LOCKSTEP) waits for
 each answer before it samples again, so host latency cannot hurt it there and
 the overrun interlock is not fed.
 
@@ -48,7 +50,7 @@ from daemon.control.excitation import Excitation
 from daemon.control.homing import Homing, HomingPhase
 from daemon.control.rig_setup import ControlSet
 from daemon.link.link import Link
-from daemon.runtime.timing import RING_SAMPLES, TimingRings
+from daemon.runtime.timing import RING_MASK, TimingRings
 from daemon.supervisor import Action, Event, LinkErrorMonitor, Output, State, Supervisor, Trip
 from daemon.supervisor.states import MOTION_STATES
 from daemon.supervisor.stop_ramp import FOLLOWER_ACCEL_FACTOR, FOLLOWER_TIME_CONSTANT_S
@@ -107,7 +109,6 @@ class ControlCycle:
         self.fd = -1
         self.timing = TimingRings()
         # Per-sample state, readable by status and the watchdog.
-        self.samples = 0
         self.missed = 0
         self.t_s = 0.0
         self.measured: Measured = (0.0, 0.0, math.pi, 0.0)
@@ -117,7 +118,6 @@ class ControlCycle:
         self.telemetry_flowing = False  # False until the first frame after a (re)connect
         self.fault_mask = 0xFFFF  # device faults being cleared on operator reset are masked
         self.device_armed = False
-        self._drive_seq = 0
         self._epoch_us = 0
         self._last_t_us = 0
         self._period_us = round(1e6 / config.sampling.rate_hz)
@@ -137,7 +137,12 @@ class ControlCycle:
         self._has_fallen = controls.window.has_fallen
         self._balance_update = controls.balance.update
         self._on_sample = supervisor.on_sample
-        self._rings = (self.timing.latency_ns, *self.timing.stages_ns)
+        self._stamps = self.timing.stamps
+
+    @property
+    def samples(self) -> int:
+        """Telemetry samples answered so far (each with one Drive frame)."""
+        return self.timing.count
 
     # ------------------------------------------------------------------ port
 
@@ -199,9 +204,15 @@ class ControlCycle:
         self._prev_applied = tm.drive_applied
 
     def _sample(self, tm: Telemetry, t0: int, t1: int) -> None:
-        # Written for speed (it runs every sample): each attribute read once, the balance case
-        # dispatched inline, the hot callables bound in __init__.
-        t_us = tm.t_us
+        """Answer one telemetry sample: estimate, control, interlocks, encode, write, record.
+
+        Written for speed, as it runs every sample: the telemetry unpacked once, each attribute
+        read once, the balance case dispatched inline, the hot callables bound in __init__, the
+        stage timings kept as one tuple of clock readings. The Drive frame's own seq is the
+        count of samples answered (mod 2**16).
+        """
+        (seq, t_us, cart_counts, pendulum_counts, switches, faults, status, applied,
+         _motor_current_a, supply_v, _late_commands) = tm
         if t_us < self._last_t_us:  # the device restarted its clock (reset): keep time monotonic
             self._epoch_us += self._last_t_us + self._period_us
         self._last_t_us = t_us
@@ -211,11 +222,8 @@ class ControlCycle:
         if not self.telemetry_flowing:
             self.telemetry_flowing = True
             self._on_telemetry_resumed()
-        switches = tm.switches
-        cart_counts = tm.cart_counts
-        pendulum_counts = tm.pendulum_counts
         x, v, th, w = measured = self._estimate(cart_counts, pendulum_counts, self._prev_applied)
-        self._prev_applied = tm.drive_applied
+        self._prev_applied = applied
         self.measured = measured
         t2 = _clock_ns()
 
@@ -236,8 +244,7 @@ class ControlCycle:
         requested = drive
         t3 = _clock_ns()
 
-        faults = tm.faults
-        trip = self._on_sample(t_s, x, v, th, w, drive, switches, faults & self.fault_mask, tm.supply_v)
+        trip = self._on_sample(t_s, x, v, th, w, drive, switches, faults & self.fault_mask, supply_v)
         stats = self._stats
         gaps = stats.gaps
         corrupt = stats.crc_failures + stats.cobs_errors + stats.runts
@@ -259,9 +266,9 @@ class ControlCycle:
             drive = limit if drive >= limit else -limit if drive <= -limit else 0.0
         t4 = _clock_ns()
 
-        seq = self._drive_seq
-        self._drive_seq = (seq + 1) & 0xFFFF
-        frame = encode_drive(seq, drive, tm.seq)
+        timing = self.timing
+        answered = timing.count
+        frame = encode_drive(answered & 0xFFFF, drive, seq)
         t5 = _clock_ns()
         try:
             _write(self.fd, frame)
@@ -277,26 +284,16 @@ class ControlCycle:
         stats.tx_frames.append((t_write, frame[:-1], size - 1))
         self.last_drive = drive
 
+        self._stamps[answered & RING_MASK] = (t0, t1, t2, t3, t4, t5, t_write)
+        timing.count = answered + 1
         latency_ns = t_write - t0
-        timing = self.timing
-        i = timing.count % RING_SAMPLES
-        timing.count += 1
-        latency, decode, estimate, control, interlocks, encode, write = self._rings
-        latency[i] = latency_ns
-        decode[i] = t1 - t0
-        estimate[i] = t2 - t1
-        control[i] = t3 - t2
-        interlocks[i] = t4 - t3
-        encode[i] = t5 - t4
-        write[i] = t_write - t5
-        self.samples += 1
         self.put_sample((
-            tm.seq, t_us, t0, cart_counts, pendulum_counts, switches, faults,
+            seq, t_us, t0, cart_counts, pendulum_counts, switches, faults,
             x, v, th, w, requested, drive, self._mode_code, latency_ns * 1e-3,
         ))
         if trip is not None:
             self._on_trip(trip, t_s)
-        if latency_ns > self._overrun_budget_ns and not tm.status & _LOCKSTEP:
+        if latency_ns > self._overrun_budget_ns and not status & _LOCKSTEP:
             overrun = self.monitor.note_cycle(t_s, latency_ns * 1e-3)
             if overrun is not None:
                 self.supervisor.trip(overrun, t_s)

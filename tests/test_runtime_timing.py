@@ -1,0 +1,45 @@
+"""The cycle's timing rings: stage costs and latencies from the clock readings of each sample."""
+
+import math
+
+import pytest
+
+from daemon.runtime.timing import RING_MASK, RING_SAMPLES, STAGES, TimingRings
+
+
+def store(rings: TimingRings, start_ns: int, costs_ns: tuple[int, ...]) -> None:
+    """What the cycle does per sample: the readings at the stage boundaries, one tuple."""
+    readings = [start_ns]
+    for cost in costs_ns:
+        readings.append(readings[-1] + cost)
+    rings.stamps[rings.count & RING_MASK] = tuple(readings)
+    rings.count += 1
+
+
+def test_stage_costs_and_latency_are_the_differences_of_the_readings():
+    rings = TimingRings()
+    costs = (1000, 2000, 3000, 4000, 5000, 6000)  # ns: decode .. write
+    for k in range(101):
+        store(rings, 10**12 + k * 2_000_000, costs)
+    stages = rings.stage_us()
+    assert list(stages) == list(STAGES)
+    for name, cost in zip(STAGES, costs, strict=True):
+        assert stages[name] == {"p50": cost / 1000, "p99": cost / 1000}
+    assert rings.latency_us() == {"p50": 21.0, "p99": 21.0, "max": 21.0}
+    assert rings.compute_us() == {"p50": 15.0, "p99": 15.0}  # all but the write
+
+
+def test_only_the_most_recent_samples_count():
+    rings = TimingRings()
+    for k in range(100):
+        store(rings, k * 2_000_000, (0, 0, 0, 0, 0, 999_000))  # slow writes, long ago
+    for k in range(RING_SAMPLES):
+        store(rings, (k + 100) * 2_000_000, (0, 0, 0, 0, 0, 7000 + k % 10))
+    latency = rings.latency_us()
+    assert latency["max"] == 7.009
+    assert latency["p50"] == pytest.approx(7.004, abs=0.001)
+
+
+def test_no_samples_give_nan():
+    rings = TimingRings()
+    assert all(math.isnan(v) for v in rings.latency_us().values())
