@@ -189,47 +189,33 @@ class SampleInterlocks:
         ``drive`` is the controller's requested command (before clamping);
         ``supply_v`` is NaN when the rig does not report it; ``checks`` is a
         :class:`Checks` mask for the present state.
+
+        Written for the common case, as it runs every sample: the rig's flags are
+        looked at only when one is set, and each value is compared with its limit
+        once, in order of severity.
         """
         lim = self.limits
-        motion = checks & _MOTION
         # Sustained conditions: update the start times first, whatever trips below.
-        if motion and abs(drive) >= lim.saturation_drive:
-            if self._saturated_since_s == INF:
-                self._saturated_since_s = t_s
+        if checks & _MOTION:
+            drive_abs = abs(drive)
+            if drive_abs >= lim.saturation_drive:
+                if self._saturated_since_s == INF:
+                    self._saturated_since_s = t_s
+            else:
+                self._saturated_since_s = INF
+            if drive_abs >= lim.stall_drive and abs(v_mps) < lim.stall_speed_mps:
+                if self._stalled_since_s == INF:
+                    self._stalled_since_s = t_s
+            else:
+                self._stalled_since_s = INF
         else:
-            self._saturated_since_s = INF
-        if motion and abs(drive) >= lim.stall_drive and abs(v_mps) < lim.stall_speed_mps:
-            if self._stalled_since_s == INF:
-                self._stalled_since_s = t_s
-        else:
-            self._stalled_since_s = INF
+            self._saturated_since_s = self._stalled_since_s = INF
 
-        if switches & _ESTOP_BITS_SWITCHES or faults & _ESTOP_BITS_FAULTS:
-            return Trip(
-                "estop.button",
-                lim.estop_action,
-                "e-stop button pressed on the rig",
-                {"switches": float(switches), "faults": float(faults)},
-                estop=True,
-            )
         # Drive off at once.
-        if faults & _TRIP_FAULTS:
-            return _fault_flag_trip(faults)
-        if switches & SW_END_STOP:
-            return Trip(
-                "track.end_stop",
-                Action.DRIVE_OFF,
-                "cart against a hard end stop",
-                {"x_m": x_m, "v_mps": v_mps},
-            )
-        if checks & _SWITCHES and switches & _LIMIT_SWITCHES:
-            side = "negative" if switches & SW_LIMIT_NEG else "positive"
-            return Trip(
-                "track.limit_switch",
-                Action.DRIVE_OFF,
-                f"{side} limit switch hit",
-                {"x_m": x_m, "v_mps": v_mps},
-            )
+        if switches or faults:
+            trip = _flag_trip(lim, checks, x_m, v_mps, switches, faults)
+            if trip is not None:
+                return trip
         if (
             supply_v < lim.supply_min_v or supply_v > lim.supply_max_v
         ):  # NaN (not reported) compares False
@@ -248,16 +234,21 @@ class SampleInterlocks:
             )
         # Controlled stop.
         if checks & _TRACK:
-            if abs(x_m) > lim.soft_limit_m:
+            soft_m = lim.soft_limit_m
+            if abs(x_m) > soft_m:
                 return Trip(
                     "track.soft_limit",
                     Action.CONTROLLED_STOP,
-                    f"cart at {x_m:+.3f} m beyond the soft limit ±{lim.soft_limit_m:.3f} m",
-                    {"x_m": x_m, "v_mps": v_mps, "limit_m": lim.soft_limit_m},
+                    f"cart at {x_m:+.3f} m beyond the soft limit ±{soft_m:.3f} m",
+                    {"x_m": x_m, "v_mps": v_mps, "limit_m": soft_m},
                 )
             if v_mps != 0.0:
-                room_m = lim.soft_limit_m - x_m if v_mps > 0.0 else lim.soft_limit_m + x_m
-                needed_m = stopping_distance_m(v_mps, lim.stop_decel_mps2, lim.stop_lag_s)
+                if v_mps > 0.0:
+                    room_m, speed = soft_m - x_m, v_mps
+                else:
+                    room_m, speed = soft_m + x_m, -v_mps
+                # stopping_distance_m(v_mps, lim.stop_decel_mps2, lim.stop_lag_s), inline
+                needed_m = speed * lim.stop_lag_s + speed * speed / (2.0 * lim.stop_decel_mps2)
                 if needed_m > room_m:
                     return Trip(
                         "track.stopping_distance",
@@ -265,7 +256,7 @@ class SampleInterlocks:
                         f"needs {needed_m:.3f} m to stop at {v_mps:+.3f} m/s, {room_m:.3f} m left",
                         {"x_m": x_m, "v_mps": v_mps, "needed_m": needed_m, "room_m": room_m},
                     )
-        if motion:
+        if checks & _MOTION:
             if abs(v_mps) > lim.max_cart_speed_mps:
                 return Trip(
                     "cart.overspeed",
@@ -293,6 +284,38 @@ class SampleInterlocks:
                 {"omega_radps": omega_radps, "limit_radps": lim.max_pendulum_rate_radps},
             )
         return None
+
+
+def _flag_trip(
+    lim: InterlockLimits, checks: int, x_m: float, v_mps: float, switches: int, faults: int
+) -> Trip | None:
+    """The trip the rig's switch and fault flags call for, most severe first, or ``None``."""
+    if switches & _ESTOP_BITS_SWITCHES or faults & _ESTOP_BITS_FAULTS:
+        return Trip(
+            "estop.button",
+            lim.estop_action,
+            "e-stop button pressed on the rig",
+            {"switches": float(switches), "faults": float(faults)},
+            estop=True,
+        )
+    if faults & _TRIP_FAULTS:
+        return _fault_flag_trip(faults)
+    if switches & SW_END_STOP:
+        return Trip(
+            "track.end_stop",
+            Action.DRIVE_OFF,
+            "cart against a hard end stop",
+            {"x_m": x_m, "v_mps": v_mps},
+        )
+    if checks & _SWITCHES and switches & _LIMIT_SWITCHES:
+        side = "negative" if switches & SW_LIMIT_NEG else "positive"
+        return Trip(
+            "track.limit_switch",
+            Action.DRIVE_OFF,
+            f"{side} limit switch hit",
+            {"x_m": x_m, "v_mps": v_mps},
+        )
+    return None
 
 
 def _fault_flag_trip(faults: int) -> Trip:
