@@ -144,6 +144,7 @@ def _acceleration_function(params: PlantParams) -> Accelerations:
     b = params.cart_viscous_n_per_mps + drive_gains(params.drive)[1]
     bp = params.pivot_viscous_nms_per_rad
     coulomb = params.cart_coulomb_n
+    mt_jp = mt * jp
 
     def accel(v: float, s: float, c: float, w: float, f_rest: float) -> tuple[float, float]:
         q_th = mgl * s - bp * w
@@ -160,7 +161,7 @@ def _acceleration_function(params: PlantParams) -> Accelerations:
             q_x = f_rest - coulomb if f_hold > 0.0 else f_rest + coulomb
         mlc = ml * c
         rhs_x = q_x - centripetal
-        det = mt * jp - mlc * mlc
+        det = mt_jp - mlc * mlc
         return (jp * rhs_x + mlc * q_th) / det, (mlc * rhs_x + mt * q_th) / det
 
     return accel
