@@ -91,6 +91,20 @@ def test_counters_wrap_like_a_signed_32_bit_register(value):
     assert wrap_i32(value) == int(np.array(value, dtype=np.int64).astype(np.int32))
 
 
+def test_readings_past_the_32_bit_range_wrap_like_the_counter_registers():
+    # A miscount that carries a counter past 2^31 - 1 wraps it, as a C int32_t counter
+    # wraps (two's complement; numpy's int32 conversion truncates the same way).
+    def as_int32(value: int) -> int:
+        return int(np.array(value, dtype=np.int64).astype(np.int32))
+
+    sensors = Sensors(DEMO_SENSORS)
+    sensors.glitch("cart", 0x7FFF_FFFF)
+    assert sensors.encoder_counts(0.1, math.pi) == (as_int32(17385 + 0x7FFF_FFFF), 0)
+    sensors.glitch("pendulum", -0x8000_0000)
+    assert sensors.encoder_counts(0.0, math.pi / 2) == (0x7FFF_FFFF, as_int32(-1024 - 0x8000_0000))
+    assert sensors.encoder_counts(-0.1, math.pi) == (as_int32(-17385 + 0x7FFF_FFFF), -0x8000_0000)
+
+
 def test_noise_adds_to_the_quantisation_noise_variance():
     sigma = 2.0
     sensors = Sensors(SensorParams(173852.0, 4096, cart_noise_counts=sigma), seed=11)

@@ -444,6 +444,31 @@ async def test_stuck_and_noisy_limit_switches():
     assert 74 <= chatter <= 126
 
 
+@pytest.mark.parametrize("has_switches", [True, False])
+async def test_limit_switches_trip_at_their_inset_and_end_stops_show_at_the_track_ends(has_switches):
+    spec = demo_spec()
+    track = replace(spec.plant.track, has_limit_switches=has_switches)
+    spec = replace(spec, plant=replace(spec.plant, track=track))
+    async with connect("pipe", spec, lockstep=True) as (_rig, host):
+        _hello, first = await handshake(host, 500, 200)
+        await host.command(p.ClearFaults(2))
+        await host.command(p.Arm(3, 1))
+        # 4 V toward +x until the cart has hit that end, then toward -x until it has hit the other
+        samples = await run_lockstep(host, first, 1300, lambda seq: 4.0 if seq < 450 else -4.0)
+    per_m = spec.sensors.cart_counts_per_m
+    trip = (track.length_m / 2 - track.switch_inset_m) * per_m  # configs/kestrel-1.toml: 0.42 m
+    end = round(track.length_m / 2 * per_m)
+    for t in samples:
+        if abs(abs(t.cart_counts) - trip) > 1:  # clear of the trip point by more than a count
+            assert bool(t.switches & p.SW_LIMIT_POS) == (has_switches and t.cart_counts > trip), t
+            assert bool(t.switches & p.SW_LIMIT_NEG) == (has_switches and t.cart_counts < -trip), t
+        if abs(t.cart_counts) == end:
+            assert t.switches & p.SW_END_STOP, t
+    at_ends = [t.cart_counts for t in samples if t.switches & p.SW_END_STOP]
+    assert at_ends[0] == end and at_ends[-1] == -end  # first touched at +x, last at -x
+    assert any(t.switches & p.SW_LIMIT_POS for t in samples) == has_switches
+
+
 @pytest.mark.parametrize("kind", TRANSPORTS)
 async def test_driver_fault_cuts_the_drive_and_is_reported(kind):
     async with connect(kind, **faulty((0.02, DriverFault()))) as (_rig, host):
