@@ -293,15 +293,7 @@ def test_each_step_uses_the_force_of_its_own_command():
     # The step's drive force depends only on the command it is given (sim_device/drive.py):
     # a plant stepped through changing, repeated, saturating, dead-band and NaN commands follows
     # the same trajectory, bit for bit, as a fresh plant placed in each state for each step.
-    drive = DriveParams(
-        kind="voltage",
-        limit=12.0,
-        torque_constant_nm_per_a=0.04,
-        resistance_ohm=2.0,
-        gear_ratio=2.0,
-        pulley_radius_m=0.015,
-        dead_band=0.5,
-    )
+    drive = replace(FORCE_DRIVE, limit=10.0, dead_band=0.5)
     params = replace(FRICTIONLESS, drive=drive, cart_coulomb_n=0.2, track=TrackParams(0.9, 0.03))
     commands = [3.0, 3.0, -2.0, 0.3, 0.3, 20.0, -20.0, math.nan, 0.0, -0.0, 6.0, 3.0] * 50
     plant = Plant(params, (0.0, 0.0, math.pi - 0.5, 0.0), substeps=1)
