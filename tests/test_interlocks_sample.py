@@ -5,6 +5,8 @@ from __future__ import annotations
 import math
 
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 from scipy.integrate import quad
 
 from daemon.config import demo_config_path, parse_config
@@ -88,6 +90,35 @@ def test_beyond_the_soft_limit_is_a_controlled_stop_and_names_the_position():
     assert (trip.name, trip.action) == ("track.soft_limit", Action.CONTROLLED_STOP)
     assert trip.values["x_m"] == -0.37
     assert "-0.370 m" in trip.reason
+
+
+DEMO_LIMITS = InterlockLimits.from_config(config())
+
+
+@given(st.floats(-0.5, 0.5), st.floats(-2.5, 2.5))
+def test_track_and_cart_speed_checks_trip_exactly_where_their_rules_say(x_m, v_mps):
+    # The rules as the issue states them, in order of the check: beyond the soft limit; the stop
+    # (v lag + v^2 / 2a) not fitting in the room left toward the limit ahead; faster than the limit.
+    lim = DEMO_LIMITS
+    room_m = lim.soft_limit_m - x_m if v_mps > 0 else lim.soft_limit_m + x_m
+    expected = None
+    if abs(x_m) > lim.soft_limit_m:
+        expected = "track.soft_limit"
+    elif v_mps != 0 and abs(v_mps) * lim.stop_lag_s + v_mps**2 / (2 * lim.stop_decel_mps2) > room_m:
+        expected = "track.stopping_distance"
+    elif abs(v_mps) > lim.max_cart_speed_mps:
+        expected = "cart.overspeed"
+    trip = sample(SampleInterlocks(lim), x_m=x_m, v_mps=v_mps)
+    assert (trip.name if trip else None) == expected
+
+
+def test_the_calm_envelope_holds_a_balance_run_and_ends_where_the_stop_still_fits_twice():
+    il = interlocks()
+    assert il.calm_x_m == pytest.approx(0.18)  # half the demo rig's 0.36 m soft limit
+    # demo: 0.06 s lag, 6 m/s^2: v * 0.06 + v^2 / 12 = 0.09 m (a quarter of the soft limit)
+    assert il.calm_v_mps * 0.06 + il.calm_v_mps**2 / 12 == pytest.approx(0.09)
+    assert sample(il, x_m=il.calm_x_m, v_mps=il.calm_v_mps) is None
+    assert sample(il, x_m=-il.calm_x_m, v_mps=-il.calm_v_mps) is None
 
 
 def test_limit_switch_and_end_stop_switch_the_drive_off():

@@ -134,7 +134,7 @@ class ControlCycle:
         self.on_state_change: Callable[[State, State], None] | None = None
         # Bound once: the hot path calls these every sample (attribute chains cost per lookup).
         self._estimate = controls.estimator.update
-        self._has_fallen = controls.window.has_fallen
+        self._fall_angle_rad = controls.window.fall_angle_rad
         self._balance_update = controls.balance.update
         self._on_sample = supervisor.on_sample
         self._stamps = self.timing.stamps
@@ -231,7 +231,8 @@ class ControlCycle:
         output = m.output
         if output is _CONTROL:
             state = m.state
-            if state is _BALANCE and not self._has_fallen(th):  # the common case, inline
+            # The common case, inline: balancing and not fallen (CatchWindow.has_fallen, inline).
+            if state is _BALANCE and abs(th) <= self._fall_angle_rad:
                 balance = self.controls.balance
                 balance.set_point_m = m.setpoint_m
                 drive = self._balance_update(x, v, th, w)

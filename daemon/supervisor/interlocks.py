@@ -152,14 +152,27 @@ _PENDULUM_RATE = int(Checks.PENDULUM_RATE)
 
 
 class SampleInterlocks:
-    """The per-sample interlock check; holds only the start times of sustained conditions."""
+    """The per-sample interlock check; holds only the start times of sustained conditions.
 
-    __slots__ = ("_saturated_since_s", "_stalled_since_s", "limits")
+    The calm envelope (``calm_x_m``, ``calm_v_mps``, derived from the limits) is where the cart
+    spends a balance run: within half the soft limit of the centre, at a speed below the
+    overspeed limit from which the stop needs at most a quarter of the soft limit. Inside it no
+    soft-limit, stopping-distance or overspeed check can trip, so :meth:`check` skips them
+    there; outside it (or on NaN) it runs them all.
+    """
+
+    __slots__ = ("_saturated_since_s", "_stalled_since_s", "calm_v_mps", "calm_x_m", "limits")
 
     def __init__(self, limits: InterlockLimits):
         self.limits = limits
         self._saturated_since_s = INF
         self._stalled_since_s = INF
+        room_m = max(0.0, limits.soft_limit_m)
+        self.calm_x_m = room_m / 2  # room toward either limit: at least room_m / 2
+        # the speed whose stopping distance is room_m / 4: v lag + v^2 / (2 a) = room_m / 4
+        decel, lag = limits.stop_decel_mps2, limits.stop_lag_s
+        stop_fits_mps = decel * (math.sqrt(lag * lag + room_m / (2.0 * decel)) - lag)
+        self.calm_v_mps = min(stop_fits_mps, limits.max_cart_speed_mps)
 
     def reset_timers(self) -> None:
         """Forget sustained conditions (call when a new controller takes over)."""
@@ -191,8 +204,8 @@ class SampleInterlocks:
         :class:`Checks` mask for the present state.
 
         Written for the common case, as it runs every sample: the rig's flags are
-        looked at only when one is set, and each value is compared with its limit
-        once, in order of severity.
+        looked at only when one is set, and the track and cart-speed checks only
+        outside the calm envelope (see the class docstring).
         """
         lim = self.limits
         # Sustained conditions: update the start times first, whatever trips below.
@@ -233,6 +246,34 @@ class SampleInterlocks:
                 {"drive": drive, "v_mps": v_mps, "held_s": t_s - self._stalled_since_s},
             )
         # Controlled stop.
+        if not (abs(x_m) <= self.calm_x_m and abs(v_mps) <= self.calm_v_mps):
+            trip = self._track_or_speed_trip(checks, x_m, v_mps)
+            if trip is not None:
+                return trip
+        if checks & _MOTION and t_s - self._saturated_since_s > lim.saturation_time_s:
+            return Trip(
+                "drive.saturation",
+                Action.CONTROLLED_STOP,
+                f"drive saturated for {t_s - self._saturated_since_s:.2f} s",
+                {
+                    "drive": drive,
+                    "held_s": t_s - self._saturated_since_s,
+                    "limit_s": lim.saturation_time_s,
+                },
+            )
+        if checks & _PENDULUM_RATE and abs(omega_radps) > lim.max_pendulum_rate_radps:
+            return Trip(
+                "pendulum.overspeed",
+                Action.CONTROLLED_STOP,
+                f"pendulum rate {math.degrees(abs(omega_radps)):.0f} deg/s above "
+                f"{math.degrees(lim.max_pendulum_rate_radps):.0f} deg/s",
+                {"omega_radps": omega_radps, "limit_radps": lim.max_pendulum_rate_radps},
+            )
+        return None
+
+    def _track_or_speed_trip(self, checks: int, x_m: float, v_mps: float) -> Trip | None:
+        """Soft limit, stopping distance (with ``Checks.TRACK``) and cart overspeed (``Checks.MOTION``)."""
+        lim = self.limits
         if checks & _TRACK:
             soft_m = lim.soft_limit_m
             if abs(x_m) > soft_m:
@@ -243,12 +284,8 @@ class SampleInterlocks:
                     {"x_m": x_m, "v_mps": v_mps, "limit_m": soft_m},
                 )
             if v_mps != 0.0:
-                if v_mps > 0.0:
-                    room_m, speed = soft_m - x_m, v_mps
-                else:
-                    room_m, speed = soft_m + x_m, -v_mps
-                # stopping_distance_m(v_mps, lim.stop_decel_mps2, lim.stop_lag_s), inline
-                needed_m = speed * lim.stop_lag_s + speed * speed / (2.0 * lim.stop_decel_mps2)
+                room_m = soft_m - x_m if v_mps > 0.0 else soft_m + x_m
+                needed_m = stopping_distance_m(v_mps, lim.stop_decel_mps2, lim.stop_lag_s)
                 if needed_m > room_m:
                     return Trip(
                         "track.stopping_distance",
@@ -256,32 +293,12 @@ class SampleInterlocks:
                         f"needs {needed_m:.3f} m to stop at {v_mps:+.3f} m/s, {room_m:.3f} m left",
                         {"x_m": x_m, "v_mps": v_mps, "needed_m": needed_m, "room_m": room_m},
                     )
-        if checks & _MOTION:
-            if abs(v_mps) > lim.max_cart_speed_mps:
-                return Trip(
-                    "cart.overspeed",
-                    Action.CONTROLLED_STOP,
-                    f"cart speed {abs(v_mps):.3f} m/s above {lim.max_cart_speed_mps:g} m/s",
-                    {"v_mps": v_mps, "limit_mps": lim.max_cart_speed_mps},
-                )
-            if t_s - self._saturated_since_s > lim.saturation_time_s:
-                return Trip(
-                    "drive.saturation",
-                    Action.CONTROLLED_STOP,
-                    f"drive saturated for {t_s - self._saturated_since_s:.2f} s",
-                    {
-                        "drive": drive,
-                        "held_s": t_s - self._saturated_since_s,
-                        "limit_s": lim.saturation_time_s,
-                    },
-                )
-        if checks & _PENDULUM_RATE and abs(omega_radps) > lim.max_pendulum_rate_radps:
+        if checks & _MOTION and abs(v_mps) > lim.max_cart_speed_mps:
             return Trip(
-                "pendulum.overspeed",
+                "cart.overspeed",
                 Action.CONTROLLED_STOP,
-                f"pendulum rate {math.degrees(abs(omega_radps)):.0f} deg/s above "
-                f"{math.degrees(lim.max_pendulum_rate_radps):.0f} deg/s",
-                {"omega_radps": omega_radps, "limit_radps": lim.max_pendulum_rate_radps},
+                f"cart speed {abs(v_mps):.3f} m/s above {lim.max_cart_speed_mps:g} m/s",
+                {"v_mps": v_mps, "limit_mps": lim.max_cart_speed_mps},
             )
         return None
 
