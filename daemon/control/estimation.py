@@ -104,10 +104,9 @@ class StateEstimator:
         if theta_w <= 0.0:
             theta_w += TWO_PI
         theta_w -= _PI
-        region = self._region_rad
         if self._kalman_active:
             state = self._kalman.update(x_m, theta_w, applied_drive)
-            if -region < theta_w < region:
+            if abs(theta_w) < self._region_rad:
                 return state
             # Leaving the region: the filtered differences take over from the Kalman filter's rates.
             self._kalman_active = False
@@ -117,7 +116,7 @@ class StateEstimator:
             return x_m, v, theta_w, w
         v = self._cart_rate.update(x_m)
         w = self._pendulum_rate.update(theta)
-        if -region < theta_w < region:  # entering the region: the Kalman filter takes over from here
+        if abs(theta_w) < self._region_rad:  # entering the region: the Kalman filter takes over here
             self._kalman.reset((x_m, v, theta_w, w))
             self._kalman_active = True
         return x_m, v, theta_w, w

@@ -54,7 +54,17 @@ from daemon.runtime.timing import RING_MASK, TimingRings
 from daemon.supervisor import Action, Event, LinkErrorMonitor, Output, State, Supervisor, Trip
 from daemon.supervisor.states import MOTION_STATES
 from daemon.supervisor.stop_ramp import FOLLOWER_ACCEL_FACTOR, FOLLOWER_TIME_CONSTANT_S
-from protocol import ST_LOCKSTEP, Arm, Reply, ReplyResult, Stop, Telemetry, encode_drive
+from protocol import (
+    ST_LOCKSTEP,
+    Arm,
+    FrameDecoder,
+    LinkStats,
+    Reply,
+    ReplyResult,
+    Stop,
+    Telemetry,
+    encode_drive,
+)
 
 READ_BYTES = 65536
 
@@ -75,7 +85,62 @@ Measured = tuple[float, float, float, float]
 
 
 class ControlCycle:
-    """Everything that happens once per telemetry frame, and the mode switches between frames."""
+    """Everything that happens once per telemetry frame, and the mode switches between frames.
+
+    Slotted: the hot path reads and writes a few dozen of these attributes every sample, and
+    slot access is the cheapest attribute access CPython has.
+    """
+
+    __slots__ = (
+        "_balance",
+        "_decoder",
+        "_epoch_us",
+        "_estimator",
+        "_fall_angle_rad",
+        "_last_t_us",
+        "_mode_code",
+        "_next_wake_s",
+        "_on_link_lost",
+        "_on_message",
+        "_on_telemetry_resumed",
+        "_on_trip",
+        "_output",
+        "_overrun_budget_ns",
+        "_period_us",
+        "_prev_applied",
+        "_seen_corrupt",
+        "_seen_gaps",
+        "_stamps",
+        "_state",
+        "_state_waiters",
+        "_stats",
+        "_time_waiters",
+        "_waiter_order",
+        "controls",
+        "device_armed",
+        "excitation",
+        "excite_start_s",
+        "fault_mask",
+        "fd",
+        "follower",
+        "hold",
+        "homing",
+        "last_drive",
+        "last_rx_ns",
+        "last_telemetry",
+        "limit",
+        "link",
+        "machine",
+        "measured",
+        "missed",
+        "monitor",
+        "on_state_change",
+        "put_sample",
+        "supervisor",
+        "t_s",
+        "telemetry_flowing",
+        "timing",
+    )
 
     def __init__(
         self,
@@ -132,12 +197,16 @@ class ControlCycle:
         self._next_wake_s = math.inf
         self._waiter_order = 0
         self.on_state_change: Callable[[State, State], None] | None = None
-        # Bound once: the hot path calls these every sample (attribute chains cost per lookup).
-        self._estimate = controls.estimator.update
+        # What the hot path uses every sample, one attribute away. Objects rather than their
+        # bound methods: CPython 3.11 specialises ``obj.method()`` calls, not calls of a bound
+        # method kept in an attribute.
+        self._estimator = controls.estimator
+        self._balance = controls.balance
         self._fall_angle_rad = controls.window.fall_angle_rad
-        self._balance_update = controls.balance.update
-        self._on_sample = supervisor.on_sample
         self._stamps = self.timing.stamps
+        self._decoder: FrameDecoder | None = None  # these three come with the link (attach)
+        self._on_message: Callable[[object], None] | None = None
+        self._stats: LinkStats | None = None
 
     @property
     def samples(self) -> int:
@@ -150,7 +219,7 @@ class ControlCycle:
         """Start answering telemetry on ``link``'s port (reader callback on its fd)."""
         self.link = link
         self.fd = link.fd
-        self._feed = link.decoder.feed
+        self._decoder = link.decoder
         self._on_message = link.on_message
         self._stats = link.stats
         self._seen_gaps = 0
@@ -180,7 +249,7 @@ class ControlCycle:
         if not data:
             self._on_link_lost("the rig port reached end of file (device gone)")
             return
-        messages = self._feed(data)
+        messages = self._decoder.feed(data)
         t1 = _clock_ns()
         telemetry = None
         for message in messages:
@@ -200,14 +269,14 @@ class ControlCycle:
         scale the velocity estimates of the answered sample by the number of periods missed.
         """
         self.missed += 1
-        self._estimate(tm.cart_counts, tm.pendulum_counts, self._prev_applied)
+        self._estimator.update(tm.cart_counts, tm.pendulum_counts, self._prev_applied)
         self._prev_applied = tm.drive_applied
 
     def _sample(self, tm: Telemetry, t0: int, t1: int) -> None:
         """Answer one telemetry sample: estimate, control, interlocks, encode, write, record.
 
         Written for speed, as it runs every sample: the telemetry unpacked once, each attribute
-        read once, the balance case dispatched inline, the hot callables bound in __init__, the
+        read once, the balance case dispatched inline, the objects it calls one attribute away, the
         stage timings kept as one tuple of clock readings. The Drive frame's own seq is the
         count of samples answered (mod 2**16).
         """
@@ -222,7 +291,7 @@ class ControlCycle:
         if not self.telemetry_flowing:
             self.telemetry_flowing = True
             self._on_telemetry_resumed()
-        x, v, th, w = measured = self._estimate(cart_counts, pendulum_counts, self._prev_applied)
+        x, v, th, w = measured = self._estimator.update(cart_counts, pendulum_counts, self._prev_applied)
         self._prev_applied = applied
         self.measured = measured
         t2 = _clock_ns()
@@ -233,9 +302,9 @@ class ControlCycle:
             state = m.state
             # The common case, inline: balancing and not fallen (CatchWindow.has_fallen, inline).
             if state is _BALANCE and abs(th) <= self._fall_angle_rad:
-                balance = self.controls.balance
+                balance = self._balance
                 balance.set_point_m = m.setpoint_m
-                drive = self._balance_update(x, v, th, w)
+                drive = balance.update(x, v, th, w)
             else:
                 drive = self._control(state, t_s, x, v, th, w, switches)
         elif output is _RAMP:
@@ -245,7 +314,9 @@ class ControlCycle:
         requested = drive
         t3 = _clock_ns()
 
-        trip = self._on_sample(t_s, x, v, th, w, drive, switches, faults & self.fault_mask, supply_v)
+        trip = self.supervisor.on_sample(
+            t_s, x, v, th, w, drive, switches, faults & self.fault_mask, supply_v
+        )
         stats = self._stats
         gaps = stats.gaps
         corrupt = stats.crc_failures + stats.cobs_errors + stats.runts
@@ -262,8 +333,8 @@ class ControlCycle:
                 drive = 0.0
             elif m.output is _RAMP:
                 drive = self.follower.update(m.ramp.velocity_setpoint(t_s), x, v, th, w)
-        limit = self.limit
-        if not -limit < drive < limit:  # clamp; a NaN from a controller becomes 0
+        if not abs(drive) < self.limit:  # clamp; a NaN from a controller becomes 0
+            limit = self.limit
             drive = limit if drive >= limit else -limit if drive <= -limit else 0.0
         t4 = _clock_ns()
 
