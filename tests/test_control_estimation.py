@@ -39,7 +39,9 @@ def test_pendulum_angle_convention_hanging_is_pi_and_half_a_turn_is_upright():
 
 
 @given(st.integers(min_value=-(2**31), max_value=2**31 - 1),
-       st.lists(st.integers(min_value=-(2**20), max_value=2**20), min_size=1, max_size=200))
+       st.lists(st.one_of(st.integers(min_value=-(2**20), max_value=2**20),  # typical steps
+                          st.integers(min_value=-(2**31) + 1, max_value=2**31 - 1)),  # any valid one
+                min_size=1, max_size=200))
 def test_counter_unwrapping_follows_a_wrapping_32_bit_counter(start, steps):
     scaling = EncoderScaling(1.0, 4096, start, 0)  # one count per metre: x_m is the unwrapped count
     true = start

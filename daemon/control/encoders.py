@@ -21,7 +21,10 @@ TWO_PI = 2.0 * math.pi
 _PI = math.pi
 _SPAN = 1 << 32
 _HALF_SPAN = 1 << 31
-_STEP_MIN = -_HALF_SPAN  # a step outside [_STEP_MIN, _HALF_SPAN) means the counter wrapped
+# Steps within +-(2**30 - 1) are already the shortest difference; only a step beyond them can be a
+# wrap. (The bounds are one-digit Python ints, so the comparison takes CPython's fast int path.)
+_PLAIN_STEP_MAX = (1 << 30) - 1
+_PLAIN_STEP_MIN = -_PLAIN_STEP_MAX
 
 
 def wrap_angle(theta_rad: float) -> float:
@@ -33,10 +36,10 @@ def wrap_angle(theta_rad: float) -> float:
 
 
 def _shortest_step(step: int) -> int:
-    """A counter step of a wrapped signed 32-bit counter as the shortest signed difference.
+    """A step of a wrapping signed 32-bit counter as the shortest signed difference.
 
-    Only called when the plain difference is out of range (the counter wrapped): the modulo
-    works on two-digit Python ints, slower than the in-range comparison that precedes it.
+    Called only for large steps (a wrap, or a huge move): the modulo works on two-digit
+    Python ints, slower than the range test that precedes it.
     """
     return (step + _HALF_SPAN) % _SPAN - _HALF_SPAN
 
@@ -76,12 +79,12 @@ class EncoderScaling:
         Both counters are unwrapped here, inline: this runs every sample.
         """
         step = cart_reading - self._cart_last
-        if not _STEP_MIN <= step < _HALF_SPAN:
+        if not _PLAIN_STEP_MIN <= step <= _PLAIN_STEP_MAX:
             step = _shortest_step(step)
         self._cart_last = cart_reading
         self._cart_total = cart = self._cart_total + step
         step = pendulum_reading - self._pendulum_last
-        if not _STEP_MIN <= step < _HALF_SPAN:
+        if not _PLAIN_STEP_MIN <= step <= _PLAIN_STEP_MAX:
             step = _shortest_step(step)
         self._pendulum_last = pendulum_reading
         self._pendulum_total = pendulum = self._pendulum_total + step

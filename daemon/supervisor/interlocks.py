@@ -208,8 +208,9 @@ class SampleInterlocks:
         outside the calm envelope (see the class docstring).
         """
         lim = self.limits
+        motion = checks & _MOTION
         # Sustained conditions: update the start times first, whatever trips below.
-        if checks & _MOTION:
+        if motion:
             drive_abs = abs(drive)
             if drive_abs >= lim.saturation_drive:
                 if self._saturated_since_s == INF:
@@ -250,7 +251,7 @@ class SampleInterlocks:
             trip = self._track_or_speed_trip(checks, x_m, v_mps)
             if trip is not None:
                 return trip
-        if checks & _MOTION and t_s - self._saturated_since_s > lim.saturation_time_s:
+        if motion and t_s - self._saturated_since_s > lim.saturation_time_s:
             return Trip(
                 "drive.saturation",
                 Action.CONTROLLED_STOP,
