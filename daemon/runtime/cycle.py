@@ -110,6 +110,7 @@ class ControlCycle:
         "_prev_applied",
         "_seen_corrupt",
         "_seen_gaps",
+        "_seen_resyncs",
         "_stamps",
         "_state",
         "_state_waiters",
@@ -192,6 +193,7 @@ class ControlCycle:
         self._mode_code = int(self._state)
         self._seen_gaps = 0
         self._seen_corrupt = 0
+        self._seen_resyncs = 0
         self._state_waiters: list[tuple[frozenset[State], asyncio.Future[State]]] = []
         self._time_waiters: list[tuple[float, int, asyncio.Future[float]]] = []
         self._next_wake_s = math.inf
@@ -224,6 +226,7 @@ class ControlCycle:
         self._stats = link.stats
         self._seen_gaps = 0
         self._seen_corrupt = 0
+        self._seen_resyncs = 0
         self.telemetry_flowing = False
         self.device_armed = False
         loop.add_reader(self.fd, self.on_readable)
@@ -318,15 +321,9 @@ class ControlCycle:
             t_s, x, v, th, w, drive, switches, faults & self.fault_mask, supply_v
         )
         stats = self._stats
-        gaps = stats.gaps
-        corrupt = stats.crc_failures + stats.cobs_errors + stats.runts
-        if gaps != self._seen_gaps or corrupt != self._seen_corrupt:
-            self._seen_gaps = gaps
-            self._seen_corrupt = corrupt
-            rate_trip = self.monitor.note_counters(t_s, gaps, corrupt)
-            if rate_trip is not None:
-                self.supervisor.trip(rate_trip, t_s)
-                self._on_trip(rate_trip, t_s)
+        # Every corrupt chunk also counts as a resync (LinkStats; protocol/vectors.json checks it).
+        if stats.gaps != self._seen_gaps or stats.resyncs != self._seen_resyncs:
+            self._link_errors_counted(t_s, stats)
         if m.state is not self._state or m.output is not self._output:
             self.sync()
             if m.output is _OFF:
@@ -373,6 +370,19 @@ class ControlCycle:
                 self.sync()
         if t_s >= self._next_wake_s:
             self._wake_time_waiters(t_s)
+
+    def _link_errors_counted(self, t_s: float, stats: LinkStats) -> None:
+        """Feed new sequence gaps and corrupt frames to the link-error interlock."""
+        self._seen_resyncs = stats.resyncs
+        gaps = stats.gaps
+        corrupt = stats.crc_failures + stats.cobs_errors + stats.runts
+        if gaps != self._seen_gaps or corrupt != self._seen_corrupt:
+            self._seen_gaps = gaps
+            self._seen_corrupt = corrupt
+            rate_trip = self.monitor.note_counters(t_s, gaps, corrupt)
+            if rate_trip is not None:
+                self.supervisor.trip(rate_trip, t_s)
+                self._on_trip(rate_trip, t_s)
 
     def _control(
         self, state: State, t_s: float, x: float, v: float, th: float, w: float, switches: int
