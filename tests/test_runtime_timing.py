@@ -3,6 +3,7 @@
 import math
 
 import pytest
+from test_daemon_support import recorded_samples, run_for, running_service
 
 from daemon.runtime.timing import RING_MASK, RING_SAMPLES, STAGES, TimingRings
 
@@ -43,3 +44,19 @@ def test_only_the_most_recent_samples_count():
 def test_no_samples_give_nan():
     rings = TimingRings()
     assert all(math.isnan(v) for v in rings.latency_us().values())
+
+
+async def test_the_cycle_keeps_each_samples_readings_in_stage_order(tmp_path):
+    async with running_service(tmp_path) as service:
+        service.start_recording("timing")
+        await run_for(service, 0.5)
+        cycle = service.cycle
+        assert cycle.timing.count == cycle.samples > 200
+        recent = cycle.timing.stamps[: cycle.samples]
+        assert all(len(s) == len(STAGES) + 1 and list(s) == sorted(s) for s in recent)
+        assert list(service.status()["cycle"]["stages_us"]) == list(STAGES)
+        # the latency recorded with each sample spans the readings kept for it
+        span_us = {s[0]: (s[-1] - s[0]) / 1000 for s in recent}
+        rows = recorded_samples(service)
+        assert len(rows) > 200
+        assert all(row["latency_us"] == pytest.approx(span_us[row["t_host_ns"]]) for row in rows)
