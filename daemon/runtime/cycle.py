@@ -241,6 +241,13 @@ class ControlCycle:
     # ------------------------------------------------------------------ the hot path
 
     def on_readable(self) -> None:
+        """The hot path: read, decode, answer the newest telemetry sample with one Drive frame.
+
+        Written for speed, as it runs every sample: one method from read to record, the
+        telemetry unpacked once, each attribute read once, the balance case dispatched inline,
+        the objects it calls one attribute away, the stage timings kept as one tuple of clock
+        readings. The Drive frame's own seq is the count of samples answered (mod 2**16).
+        """
         try:
             data = _read(self.fd, READ_BYTES)
         except (BlockingIOError, InterruptedError):
@@ -254,35 +261,17 @@ class ControlCycle:
             return
         messages = self._decoder.feed(data)
         t1 = _clock_ns()
-        telemetry = None
+        tm = None
         for message in messages:
             if message.__class__ is Telemetry:
-                if telemetry is not None:
-                    self._skip(telemetry)
-                telemetry = message
+                if tm is not None:
+                    self._skip(tm)
+                tm = message
             else:
                 self._on_message(message)
-        if telemetry is not None:
-            self._sample(telemetry, t0, t1)
+        if tm is None:
+            return
 
-    def _skip(self, tm: Telemetry) -> None:
-        """An older sample overtaken by a newer one in the same read: estimate through it, no answer.
-
-        The estimator's rates assume one sample period per update, so skipping its update would
-        scale the velocity estimates of the answered sample by the number of periods missed.
-        """
-        self.missed += 1
-        self._estimator.update(tm.cart_counts, tm.pendulum_counts, self._prev_applied)
-        self._prev_applied = tm.drive_applied
-
-    def _sample(self, tm: Telemetry, t0: int, t1: int) -> None:
-        """Answer one telemetry sample: estimate, control, interlocks, encode, write, record.
-
-        Written for speed, as it runs every sample: the telemetry unpacked once, each attribute
-        read once, the balance case dispatched inline, the objects it calls one attribute away, the
-        stage timings kept as one tuple of clock readings. The Drive frame's own seq is the
-        count of samples answered (mod 2**16).
-        """
         (seq, t_us, cart_counts, pendulum_counts, switches, faults, status, applied,
          _motor_current_a, supply_v, _late_commands) = tm
         if t_us < self._last_t_us:  # the device restarted its clock (reset): keep time monotonic
@@ -370,6 +359,16 @@ class ControlCycle:
                 self.sync()
         if t_s >= self._next_wake_s:
             self._wake_time_waiters(t_s)
+
+    def _skip(self, tm: Telemetry) -> None:
+        """An older sample overtaken by a newer one in the same read: estimate through it, no answer.
+
+        The estimator's rates assume one sample period per update, so skipping its update would
+        scale the velocity estimates of the answered sample by the number of periods missed.
+        """
+        self.missed += 1
+        self._estimator.update(tm.cart_counts, tm.pendulum_counts, self._prev_applied)
+        self._prev_applied = tm.drive_applied
 
     def _link_errors_counted(self, t_s: float, stats: LinkStats) -> None:
         """Feed new sequence gaps and corrupt frames to the link-error interlock."""
