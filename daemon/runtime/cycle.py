@@ -1,7 +1,8 @@
 """The control cycle: one synchronous reader callback on the port's raw file descriptor.
 
-Per telemetry frame, with no awaits, no queue hops and no allocation beyond
-the frame objects themselves::
+Per telemetry frame, with no awaits and no queue hops (what it allocates is
+floats and small tuples: the frames, the state, the sample row, the clock
+readings), in one method, :meth:`ControlCycle.on_readable`::
 
     os.read -> decode -> estimate -> active mode's controller -> interlocks -> encode Drive -> os.write
 
