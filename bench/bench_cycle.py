@@ -168,7 +168,7 @@ class Replay:
         first = self.telemetry[0]
         self._designed.estimator.reset(first.cart_counts, first.pendulum_counts)  # as homing leaves it
         self.trips: list[str] = []
-        self._finish: Callable[[], None] = lambda: None
+        self._finish: list[Callable[[], None]] = []
 
     def close(self) -> None:
         self.recorder.close()
@@ -193,21 +193,14 @@ class Replay:
             pass
 
     def timed(self, block: Callable[[int, int], None], drain: socket.socket | None) -> float:
-        """CPU seconds of ``block`` over all frames, the timer read once per BLOCK samples.
-
-        Automatic garbage collection is off, as in the daemon while the drive may move.
-        """
+        """CPU seconds of ``block`` over all frames, the timer read once per BLOCK samples."""
         n, total, clock = len(self.frames), 0.0, time.thread_time
-        gc.disable()
         for start in range(0, n, BLOCK):
             t = clock()
             block(start, min(n, start + BLOCK))
             total += clock() - t
             if drain is not None:
                 self._drain(drain)
-        gc.enable()
-        self._finish()
-        self._finish = lambda: None
         return total
 
     def harness(self) -> tuple[Callable, socket.socket]:
@@ -250,7 +243,7 @@ class Replay:
             if state is not State.BALANCE or cycle.samples != len(frames):
                 self.trips.append(f"replay ended in {state.name} after {cycle.samples} samples")
 
-        self._finish = finish
+        self._finish.append(finish)
         return block, self.peer
 
     def decode(self) -> tuple[Callable, None]:
@@ -376,14 +369,21 @@ class Replay:
             "record": lambda: self.record(states, drives),
             "bare loop": self.bare_loop,
         }
+        # Everything is built before the first region and torn down after the last, and
+        # automatic garbage collection is off throughout (as in the daemon while the drive
+        # may move), so each region's count is its own blocks and nothing else.
+        blocks = {name: prepare[name]() for name in REGIONS}
         seconds = {}
+        gc.disable()
         for name in REGIONS:
-            block, drain = prepare[name]()
             if marked:
                 mark()  # callgrind: the counts up to here go to the previous region's dump
-            seconds[name] = self.timed(block, drain)
+            seconds[name] = self.timed(*blocks[name])
         if marked:
             mark()
+        gc.enable()
+        for finish in self._finish:
+            finish()
         return seconds
 
 
