@@ -1,10 +1,14 @@
-"""`poise check-config`: validate rig configs and report every problem at once."""
+"""`poise check-config`: validate rig configs and report every problem at once.
+
+Beyond the fields themselves, it checks on the plant model that the drive can brake as hard as
+the category 1 stop counts on (:mod:`daemon.control.stop_capability`).
+"""
 
 from __future__ import annotations
 
 import argparse
 
-from daemon.config import demo_config_path, load_config
+from daemon.config import ConfigError, demo_config_path, load_config
 
 NAME = "check-config"
 HELP = "validate rig config files (one line per problem, exit status 2 if any)"
@@ -16,7 +20,13 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     paths = args.configs or [demo_config_path()]
+    from daemon.config.plant import plant_params  # the plant model: numpy, only when checking
+    from daemon.control.stop_capability import stop_decel_problem
+
     for path in paths:
         config = load_config(path)
+        problem = stop_decel_problem(config, plant_params(config))
+        if problem is not None:
+            raise ConfigError(str(path), [problem])
         print(f"{path}: ok (rig {config.rig.id}, {config.sampling.rate_hz} Hz, {config.drive.kind} drive)")
     return 0

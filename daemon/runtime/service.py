@@ -34,6 +34,7 @@ from daemon.api.server import ApiServer
 from daemon.config import PoiseConfig
 from daemon.control.homing import Homing
 from daemon.control.rig_setup import build_control_set
+from daemon.control.stop_capability import stop_decel_problem
 from daemon.errors import CommandRefused, OperatorError
 from daemon.link import Link, LinkDown, Port, open_port
 from daemon.recording import Recorder, RecordingError, RunMetadata
@@ -98,6 +99,9 @@ class PoiseService:
         self.trips: list[tuple[str, float, int]] = []  # name, device time, telemetry seq
         self.supervisor = Supervisor(config, clock=self._device_time_s, on_entry=self._on_log_entry)
         controls = build_control_set(config)
+        problem = stop_decel_problem(config, controls.params)
+        if problem is not None:
+            raise OperatorError(problem)
         self.cycle = ControlCycle(
             self.supervisor,
             controls,
