@@ -116,8 +116,9 @@ class StopSettings(Section):
     # interlock counts on. The velocity loop following the ramp may ask the drive for up to twice
     # this (daemon/supervisor/stop_ramp.py), so it must stay within what the drive gives at its
     # limit in every state: 6 m/s^2 asks up to 12, and at their drive limits Kestrel-1 brakes
-    # at 38 m/s^2 or more and Wren-2 at 16 or more, whatever the pendulum does short of running
-    # away (checked on the plant model by tests/test_interlocks_braking.py).
+    # at 37.9 m/s^2 or more and Wren-2 at 16.0 or more, whatever the pendulum does short of
+    # running away. poise run, session and check-config refuse a rig whose drive cannot give
+    # it (daemon/control/stop_capability.py, on the plant model).
     decel_mps2: float = Field(
         default=6.0,
         gt=0.0,
