@@ -34,10 +34,10 @@ from daemon.config.safety import InterlockSettings, StopSettings
 from daemon.config.service import ApiSettings, RecordingSettings
 
 __all__ = [
-    "PoiseConfig",
     "ConfigError",
-    "load_config",
+    "PoiseConfig",
     "demo_config_path",
+    "load_config",
     "parse_config",
 ]
 
@@ -73,8 +73,7 @@ class ConfigError(Exception):
 def _describe(error: dict) -> str:
     path = ".".join(str(part) for part in error["loc"]) or "(top level)"
     message = error["msg"]
-    if message.startswith("Value error, "):
-        message = message[len("Value error, ") :]
+    message = message.removeprefix("Value error, ")
     if error["type"] == "extra_forbidden":
         message = "unknown field (check the spelling; see configs/ for the fields a rig config takes)"
     elif error["type"] == "missing":

@@ -76,7 +76,7 @@ class SamplingSettings(Section):
     device_watchdog_ms: int = Field(default=50, ge=2, le=5000)
 
     @model_validator(mode="after")
-    def _watchdog_spans_samples(self) -> "SamplingSettings":
+    def _watchdog_spans_samples(self) -> SamplingSettings:
         period_ms = 1000.0 / self.rate_hz
         if self.device_watchdog_ms < 3 * period_ms:
             raise ValueError(
