@@ -9,36 +9,21 @@ period, so the device watchdog still trips in device time.
 
 A clock only decides *when*; the device keeps its own sample count and time.
 
-Real-time pacing needs timers finer than a millisecond, which asyncio's
-default loop on Linux does not give: it waits in epoll, and Python rounds each
-wait up to a whole millisecond (``selectors.EpollSelector``), so at 1 kHz a
-sample due in 0.3 ms is taken 1 ms late and the next one right after it, and
-the host receives the two in one read as if it had been slow.
-:func:`new_precise_event_loop` gives a loop that waits in select(2), whose
-timeout is in microseconds; a simulated rig in a process of its own
-(``poise sim``) runs in one, so its samples come at even intervals as a
-firmware timer interrupt's would.
+Real-time pacing is only as even as the event loop's timers: Poise's
+commands run in :mod:`daemon.runtime.event_loop`, whose timers fire to the
+microsecond (asyncio's default loop on Linux rounds each wait up to a whole
+millisecond).
 """
 
 from __future__ import annotations
 
 import asyncio
-import selectors
 from abc import ABC, abstractmethod
 from collections.abc import Callable
 
-__all__ = ["LockstepClock", "RealTimeClock", "SampleClock", "new_precise_event_loop"]
+__all__ = ["LockstepClock", "RealTimeClock", "SampleClock"]
 
 TakeSample = Callable[[], None]
-
-
-def new_precise_event_loop() -> asyncio.AbstractEventLoop:
-    """An event loop whose timers fire to within microseconds (see the module docstring).
-
-    select(2) handles file descriptors below FD_SETSIZE (1024) only: enough for a simulated
-    rig and its one host connection, not meant for a server with many clients.
-    """
-    return asyncio.SelectorEventLoop(selectors.SelectSelector())
 
 
 class SampleClock(ABC):

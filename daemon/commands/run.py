@@ -48,9 +48,9 @@ def load(args: argparse.Namespace):
 
 
 def run(args: argparse.Namespace) -> int:
-    import asyncio
     import logging
 
+    from daemon.runtime import event_loop
     from daemon.runtime.embedded_sim import SimOptions
     from daemon.runtime.service import PoiseService
 
@@ -71,5 +71,5 @@ def run(args: argparse.Namespace) -> int:
         finally:
             await service.close()
 
-    asyncio.run(serve())
+    event_loop.run(serve())
     return 0

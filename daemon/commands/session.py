@@ -29,11 +29,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    import asyncio
     import json
     import logging
 
     from daemon.errors import OperatorError
+    from daemon.runtime import event_loop
     from daemon.runtime.embedded_sim import SimOptions
     from daemon.runtime.service import PoiseService
     from daemon.runtime.session import BALANCED, parse_disturbance, run_session, summarise_run
@@ -55,7 +55,7 @@ def run(args: argparse.Namespace) -> int:
             await service.close(outcome="aborted")
         return summarise_run(config.recording.db_path, result)
 
-    summary = asyncio.run(session())
+    summary = event_loop.run(session())
     if args.json:
         print(json.dumps(summary, indent=2))
     else:

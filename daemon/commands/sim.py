@@ -209,7 +209,7 @@ def run(args: argparse.Namespace) -> int:
     import asyncio
 
     from daemon.config import demo_config_path, load_config
-    from sim_device.clocks import new_precise_event_loop
+    from daemon.runtime import event_loop
     from sim_device.rig import SimulatedRig
     from sim_device.transports import PtyTransport, TcpTransport
 
@@ -247,6 +247,5 @@ def run(args: argparse.Namespace) -> int:
             rig.close()
         print(f"simulated rig stopped after {rig.sim_time_s:.3f} simulated seconds", file=sys.stderr)
 
-    with asyncio.Runner(loop_factory=new_precise_event_loop) as runner:  # even real-time pacing
-        runner.run(serve())
+    event_loop.run(serve())  # timers to the microsecond: samples at even intervals
     return 0
