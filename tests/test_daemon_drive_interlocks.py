@@ -77,9 +77,11 @@ async def test_a_stopping_distance_trip_with_default_settings_stops_before_the_l
 async def test_drive_saturated_beyond_its_time_starts_a_controlled_stop(tmp_path):
     # Our scenario: Kestrel-1 started low, its drive limited to 4 V, and a step at that limit. The
     # command stays saturated while the back-EMF holds the cart near 0.5 m/s; 0.3 s of it is
-    # allowed here, over well before the cart nears the end of the track.
+    # allowed here, over well before the cart nears the end of the track. At 4 V the drive brakes
+    # at 10.4 m/s^2 or more, so the stop may count on 5 (the daemon refuses the default 6).
     async with running_service(
-        tmp_path, edits={"limit": "4.0"}, extra="[interlocks]\nsaturation_time_s = 0.3\n"
+        tmp_path, edits={"limit": "4.0"},
+        extra="[interlocks]\nsaturation_time_s = 0.3\n[stop]\ndecel_mps2 = 5.0\n",
     ) as service:
         service.start_recording("test")
         await homed_and_ready(service)
