@@ -202,6 +202,20 @@ def test_homing_offset_moves_the_origin_without_a_velocity_spike():
     assert v == pytest.approx(speed, rel=1e-6)
 
 
+def test_restarting_after_homing_far_from_the_centre_starts_at_rest():
+    # As the cycle ends homing: the new centre is declared, then the estimator restarts from the
+    # same readings in the new origin. A cart at rest must read at rest, not as having jumped by
+    # the homing offset in one sample.
+    config = load_config(KESTREL)
+    estimator = build_control_set(config).estimator
+    estimator.reset(52_000, 0)
+    estimator.scaling.set_centre_at(estimator.scaling.raw_x_m())
+    estimator.reset(52_000, 0)
+    for _ in range(5):
+        x, v, _th, _w = estimator.update(52_000, 0, 0.0)
+        assert (x, v) == (0.0, 0.0)
+
+
 def falling_through_the_kalman_region(drive: float, samples: int = 400):
     """Kestrel-1 on the plant model (no sensor noise), released 2 deg from upright with a constant
     drive: yields (kalman_active, true state, estimate) per sample while the pendulum falls out

@@ -87,8 +87,9 @@ class StateEstimator:
 
     def reset(self, cart_reading: int, pendulum_reading: int,
               v_mps: float = 0.0, omega_radps: float = 0.0) -> State:
-        """Start from these readings and rates (at rest unless given)."""
+        """Start from these readings and rates (at rest unless given), in the scaling's present origin."""
         x_m, theta = self.scaling.update(cart_reading, pendulum_reading)
+        self._offset_counts = self.scaling.cart_offset_counts  # x_m is already in this origin
         self._cart_rate.reset(x_m, v_mps)
         self._pendulum_rate.reset(theta, omega_radps)
         self._kalman_active = False
