@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import pytest
 from hypothesis import given
@@ -95,11 +96,25 @@ def test_beyond_the_soft_limit_is_a_controlled_stop_and_names_the_position():
 DEMO_LIMITS = InterlockLimits.from_config(config())
 
 
-@given(st.floats(-0.5, 0.5), st.floats(-2.5, 2.5))
-def test_track_and_cart_speed_checks_trip_exactly_where_their_rules_say(x_m, v_mps):
+@given(
+    st.floats(-0.7, 0.7),
+    st.floats(-6.0, 6.0),
+    st.one_of(st.just(DEMO_LIMITS.soft_limit_m), st.floats(-0.1, 0.6), st.floats(0.0, 1e-12)),
+    st.floats(0.5, 50.0),
+    st.floats(0.0, 0.5),
+    st.floats(0.1, 5.0),
+)
+def test_track_and_cart_speed_checks_trip_exactly_where_their_rules_say(
+    x_m, v_mps, soft_limit_m, decel_mps2, lag_s, max_speed_mps
+):
     # The rules as the issue states them, in order of the check: beyond the soft limit; the stop
     # (v lag + v^2 / 2a) not fitting in the room left toward the limit ahead; faster than the limit.
-    lim = DEMO_LIMITS
+    # Limits are drawn too (a soft limit of zero or below included), since the check skips these
+    # rules inside an envelope it works out from them.
+    lim = replace(
+        DEMO_LIMITS, soft_limit_m=soft_limit_m, stop_decel_mps2=decel_mps2, stop_lag_s=lag_s,
+        max_cart_speed_mps=max_speed_mps,
+    )
     room_m = lim.soft_limit_m - x_m if v_mps > 0 else lim.soft_limit_m + x_m
     expected = None
     if abs(x_m) > lim.soft_limit_m:
@@ -109,6 +124,16 @@ def test_track_and_cart_speed_checks_trip_exactly_where_their_rules_say(x_m, v_m
     elif abs(v_mps) > lim.max_cart_speed_mps:
         expected = "cart.overspeed"
     trip = sample(SampleInterlocks(lim), x_m=x_m, v_mps=v_mps)
+    assert (trip.name if trip else None) == expected
+
+
+@pytest.mark.parametrize(
+    ("soft_limit_m", "v_mps", "expected"),
+    [(-0.04, 0.0, "track.soft_limit"), (0.0, 0.01, "track.stopping_distance"), (0.0, 0.0, None)],
+)
+def test_with_no_room_inside_the_soft_limits_the_cart_at_the_centre_is_not_calm(soft_limit_m, v_mps, expected):
+    # A track too short for its insets: the soft limits meet (or cross) at the centre.
+    trip = sample(SampleInterlocks(replace(DEMO_LIMITS, soft_limit_m=soft_limit_m)), x_m=0.0, v_mps=v_mps)
     assert (trip.name if trip else None) == expected
 
 

@@ -167,11 +167,16 @@ class SampleInterlocks:
         self.limits = limits
         self._saturated_since_s = INF
         self._stalled_since_s = INF
-        room_m = max(0.0, limits.soft_limit_m)
+        room_m = limits.soft_limit_m
+        if not room_m > 0.0:  # no room at all (or NaN): no envelope, every check runs
+            self.calm_x_m = self.calm_v_mps = -1.0
+            return
         self.calm_x_m = room_m / 2  # room toward either limit: at least room_m / 2
-        # the speed whose stopping distance is room_m / 4: v lag + v^2 / (2 a) = room_m / 4
+        # The speed whose stopping distance is room_m / 4: the positive root of
+        # v lag + v^2 / (2 a) = room_m / 4, written without the cancellation of -b + sqrt(...).
         decel, lag = limits.stop_decel_mps2, limits.stop_lag_s
-        stop_fits_mps = decel * (math.sqrt(lag * lag + room_m / (2.0 * decel)) - lag)
+        denominator = lag + math.sqrt(lag * lag + room_m / (2.0 * decel))
+        stop_fits_mps = (room_m / 2) / denominator if denominator > 0.0 else 0.0  # 0: room underflowed
         self.calm_v_mps = min(stop_fits_mps, limits.max_cart_speed_mps)
 
     def reset_timers(self) -> None:
