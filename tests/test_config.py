@@ -56,3 +56,17 @@ def test_cli_prints_one_line_per_problem_exit_2_no_traceback(tmp_path):
     assert "Traceback" not in result.stderr
     lines = result.stderr.strip().splitlines()
     assert lines == [f"poise: {bad}: drive.limit: Input should be greater than 0 (got -3)"]
+
+
+@pytest.mark.parametrize(("length_m", "refused"), [(0.1, True), (0.17, True), (0.2, False)])
+def test_a_track_too_short_for_its_insets_is_refused_naming_the_inset(length_m, refused):
+    # Kestrel-1's insets: switches 0.03 m inside each end, soft limits 0.06 m inside the switches,
+    # so the soft limits meet at the centre on a 0.18 m track.
+    text = demo_config_path().read_text().replace("length_m = 0.90", f"length_m = {length_m}", 1)
+    assert f"length_m = {length_m}" in text
+    if not refused:
+        assert parse_config(text).soft_limit_m == pytest.approx(length_m / 2 - 0.09)
+        return
+    with pytest.raises(ConfigError) as caught:
+        parse_config(text)
+    assert caught.value.problems[0].startswith("interlocks.soft_limit_inset_m: the soft limits come out ")

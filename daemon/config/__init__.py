@@ -11,7 +11,7 @@ import tomllib
 from importlib import resources
 from pathlib import Path
 
-from pydantic import Field, ValidationError
+from pydantic import Field, ValidationError, model_validator
 
 from daemon.config.base import Section
 from daemon.config.control import (
@@ -60,6 +60,21 @@ class PoiseConfig(Section):
     recording: RecordingSettings = Field(default_factory=RecordingSettings)
     api: ApiSettings = Field(default_factory=ApiSettings)
 
+    @property
+    def soft_limit_m(self) -> float:
+        """Largest |x| allowed in normal running: inside the limit switches by the soft-limit inset."""
+        return self.track.length_m / 2 - self.track.switch_inset_m - self.interlocks.soft_limit_inset_m
+
+    @model_validator(mode="after")
+    def _room_between_the_soft_limits(self) -> PoiseConfig:
+        if not self.soft_limit_m > 0.0:
+            raise ValueError(
+                f"interlocks.soft_limit_inset_m: the soft limits come out {self.soft_limit_m:.3f} m from "
+                "the track centre, leaving the cart no room (track.length_m / 2 - track.switch_inset_m - "
+                "interlocks.soft_limit_inset_m must be above 0)"
+            )
+        return self
+
 
 class ConfigError(Exception):
     """A config that cannot be used; ``problems`` holds one human line per fault."""
@@ -71,9 +86,10 @@ class ConfigError(Exception):
 
 
 def _describe(error: dict) -> str:
-    path = ".".join(str(part) for part in error["loc"]) or "(top level)"
-    message = error["msg"]
-    message = message.removeprefix("Value error, ")
+    path = ".".join(str(part) for part in error["loc"])
+    message = error["msg"].removeprefix("Value error, ")
+    if not path:  # a check across sections names its fields itself
+        return message
     if error["type"] == "extra_forbidden":
         message = "unknown field (check the spelling; see configs/ for the fields a rig config takes)"
     elif error["type"] == "missing":

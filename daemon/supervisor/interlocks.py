@@ -120,12 +120,8 @@ class InterlockLimits:
 
 
 def soft_limit_m(config: PoiseConfig) -> float:
-    """Largest |x| allowed in normal running: inside the limit switches by ``soft_limit_inset_m``."""
-    return (
-        config.track.length_m / 2
-        - config.track.switch_inset_m
-        - config.interlocks.soft_limit_inset_m
-    )
+    """Largest |x| allowed in normal running (see :attr:`PoiseConfig.soft_limit_m`)."""
+    return config.soft_limit_m
 
 
 def stopping_distance_m(speed_mps: float, decel_mps2: float, reaction_s: float) -> float:
