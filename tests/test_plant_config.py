@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import pytest
 
-from daemon.config import load_config, parse_config
+from daemon.config import ConfigError, load_config, parse_config
 from daemon.config.plant import plant_params
 from sim_device.plant import DriveParams, PlantParams, TrackParams
 
@@ -68,6 +68,9 @@ def test_force_rig_config_with_defaults_maps_kind_limit_and_switch_settings():
 
 
 def test_a_switch_inset_past_the_track_middle_is_reported_by_field():
-    config = parse_config(MINIMAL_FORCE_RIG.replace("length_m = 1.2", "length_m = 0.08"))
+    # The config refuses it already (the soft limits lie further in still); the plant model, which
+    # the simulator also builds without a config, names the field itself.
+    with pytest.raises(ConfigError, match=r"interlocks\.soft_limit_inset_m: "):
+        parse_config(MINIMAL_FORCE_RIG.replace("length_m = 1.2", "length_m = 0.08"))
     with pytest.raises(ValueError, match=r"track\.switch_inset_m"):
-        plant_params(config)
+        TrackParams(length_m=0.08, switch_inset_m=0.05, has_limit_switches=True)
