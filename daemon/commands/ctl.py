@@ -13,6 +13,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 
 from daemon.api.commands import EXCITE_KINDS
+from daemon.commands import add_config_argument, config_path
 
 # asyncio, json, rich and the API client are imported inside run() (see daemon/cli.py).
 
@@ -76,9 +77,7 @@ class Verb:
             metavar="PATH",
             help="control socket (default: api.socket_path of the config)",
         )
-        parser.add_argument(
-            "--config", metavar="FILE", help="rig config TOML (default: the demo rig)"
-        )
+        add_config_argument(parser)
         parser.add_argument("--json", action="store_true", help="print the daemon's answer as JSON")
         parser.add_argument(
             "--timeout",
@@ -137,9 +136,9 @@ COMMANDS = [(verb.name, verb.help, verb.add_arguments, verb.run) for verb in VER
 def _socket_path(args: argparse.Namespace) -> str:
     if args.socket:
         return args.socket
-    from daemon.config import demo_config_path, load_config
+    from daemon.config import load_config
 
-    return load_config(args.config or demo_config_path()).api.socket_path
+    return load_config(config_path(args)).api.socket_path
 
 
 def _send(verb: str, socket_path: str, command: str, api_args: dict, timeout_s: float) -> dict:

@@ -8,6 +8,8 @@ from __future__ import annotations
 
 import argparse
 
+from daemon.commands import add_config_argument, config_path
+
 NAME = "dash"
 HELP = "terminal dashboard for a running daemon (live state, plots, interlocks, keys)"
 
@@ -16,7 +18,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--socket", metavar="PATH", help="control socket (default: api.socket_path of the config)"
     )
-    parser.add_argument("--config", metavar="FILE", help="rig config TOML (default: the demo rig)")
+    add_config_argument(parser)
 
 
 def drive_unit(drive_kind: str) -> str:
@@ -25,10 +27,10 @@ def drive_unit(drive_kind: str) -> str:
 
 
 def run(args: argparse.Namespace) -> int:
-    from daemon.config import demo_config_path, load_config
+    from daemon.config import load_config
     from daemon.ui.app import PoiseDash
 
-    config = load_config(args.config or demo_config_path())
+    config = load_config(config_path(args))
     socket_path = args.socket or config.api.socket_path
     PoiseDash(socket_path, drive_unit=drive_unit(config.drive.kind)).run()
     return 0

@@ -16,6 +16,8 @@ import argparse
 from pathlib import Path
 from typing import BinaryIO
 
+from daemon.commands import add_config_argument, config_path
+
 NAME = "demo"
 HELP = "simulated demo rig + daemon + dashboard in one terminal (--headless: scripted session)"
 
@@ -32,7 +34,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         action="store_true",
         help="no dashboard: run the scripted session (as `poise session --sim`) and print its summary",
     )
-    parser.add_argument("--config", metavar="FILE", help="rig config TOML (default: the demo rig)")
+    add_config_argument(parser)
 
 
 def run(args: argparse.Namespace) -> int:
@@ -41,16 +43,16 @@ def run(args: argparse.Namespace) -> int:
     import asyncio
     import tempfile
 
-    from daemon.config import demo_config_path, load_config
+    from daemon.config import load_config
 
-    config_path = Path(args.config) if args.config else demo_config_path()
-    config = load_config(config_path)
+    path = config_path(args)
+    config = load_config(path)
     log_path = Path(tempfile.mkdtemp(prefix="poise-demo-")) / "daemon.log"
     print(
         f"poise demo: starting the simulated rig {config.rig.id} and its daemon (log: {log_path})"
     )
     with open(log_path, "wb") as log:
-        return asyncio.run(_demo(config, config_path, log, log_path))
+        return asyncio.run(_demo(config, path, log, log_path))
 
 
 def _headless(config: str | None) -> int:

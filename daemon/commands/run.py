@@ -9,13 +9,15 @@ from __future__ import annotations
 
 import argparse
 
+from daemon.commands import add_config_argument, config_path
+
 NAME = "run"
 HELP = "serve one rig: control cycle, interlocks, recording, control API (SIGUSR1 = e-stop)"
 
 
 def add_port_arguments(parser: argparse.ArgumentParser) -> None:
     """--config, and --port URL or --sim (shared with `poise session`)."""
-    parser.add_argument("--config", metavar="FILE", help="rig config TOML (default: the demo rig)")
+    add_config_argument(parser)
     where = parser.add_mutually_exclusive_group()
     where.add_argument(
         "--port", metavar="URL",
@@ -38,11 +40,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def load(args: argparse.Namespace):
     """(config, config text) from --config, or the demo rig."""
-    from pathlib import Path
+    from daemon.config import load_config
 
-    from daemon.config import demo_config_path, load_config
-
-    path = Path(args.config) if args.config else demo_config_path()
+    path = config_path(args)
     config = load_config(path)
     return config, path.read_text(encoding="utf-8")
 

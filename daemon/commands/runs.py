@@ -7,6 +7,8 @@ import datetime
 import json
 from pathlib import Path
 
+from daemon.commands import add_config_argument, config_path
+
 NAME = "runs"
 HELP = "list recorded runs (id, rig, start, duration, mode reached, outcome, samples, drops)"
 
@@ -16,7 +18,7 @@ def add_store_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--db", metavar="FILE", help="run store (default: recording.db_path of the config)"
     )
-    parser.add_argument("--config", metavar="FILE", help="rig config TOML (default: the demo rig)")
+    add_config_argument(parser)
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -26,16 +28,16 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def store_path(args: argparse.Namespace) -> Path:
     """The run store named by --db, else by the config's recording.db_path (which must exist)."""
-    from daemon.config import demo_config_path, load_config
+    from daemon.config import load_config
     from daemon.errors import OperatorError
 
     if args.db:
         return Path(args.db)
-    config_path = Path(args.config) if args.config else demo_config_path()
-    path = Path(load_config(config_path).recording.db_path).expanduser()
+    source = config_path(args)
+    path = Path(load_config(source).recording.db_path).expanduser()
     if not path.is_file():
         raise OperatorError(
-            f"run store {path}: no such file (recording.db_path in {config_path}); "
+            f"run store {path}: no such file (recording.db_path in {source}); "
             "pass --db FILE or --config FILE"
         )
     return path

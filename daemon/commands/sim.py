@@ -14,6 +14,7 @@ import signal
 import sys
 from typing import TYPE_CHECKING
 
+from daemon.commands import add_config_argument, config_path
 from daemon.errors import OperatorError
 
 if TYPE_CHECKING:
@@ -26,7 +27,7 @@ HELP = "run a simulated rig on a pty or a TCP port until Ctrl-C (prints where to
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("--config", metavar="FILE", help="rig config TOML (default: the demo rig)")
+    add_config_argument(parser)
     where = parser.add_mutually_exclusive_group(required=True)
     where.add_argument("--pty", action="store_true", help="serve on a new pseudo-terminal")
     where.add_argument("--tcp", type=int, metavar="PORT", help="serve on 127.0.0.1:PORT (socket:// URL)")
@@ -208,12 +209,12 @@ def fault_plan(args: argparse.Namespace) -> FaultPlan:
 def run(args: argparse.Namespace) -> int:
     import asyncio
 
-    from daemon.config import demo_config_path, load_config
+    from daemon.config import load_config
     from daemon.runtime import event_loop
     from sim_device.rig import SimulatedRig
     from sim_device.transports import PtyTransport, TcpTransport
 
-    config = load_config(args.config or demo_config_path())
+    config = load_config(config_path(args))
     spec = rig_spec(
         config,
         encoder_noise_counts=_number("--encoder-noise-counts", args.encoder_noise_counts, 0.0, 1e6),
