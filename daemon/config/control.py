@@ -111,6 +111,9 @@ class CatchSettings(Section):
 
 
 class HomingSettings(Section):
-    speed_mps: float = Field(default=0.05, gt=0.0, le=2.0)
+    speed_mps: float = Field(
+        default=0.2, gt=0.0, le=2.0,
+        description="seek speed; lowered where braking from it would not stop within half the switch inset",
+    )
     length_tolerance_m: float = Field(default=0.02, gt=0.0, le=1.0)
     centre_tolerance_m: float = Field(default=0.003, gt=0.0, le=0.1, description="done this close to centre")

@@ -20,10 +20,20 @@ Without switches the present position is declared the centre at once
 (``DONE`` on the first sample); the travel limits then follow from the
 configured track length.
 
-Motion is a velocity loop (``a = (v_target - v) / 0.05 s``, at most 1 m/s^2)
-through the inverse plant model; the drive command is clamped to the limit.
+Motion is a velocity loop (``a = (v_target - v) / 0.05 s``, at most
+``MAX_ACCEL_MPS2``) through the inverse plant model; the drive command is
+clamped to the limit. The seek speed is ``homing.speed_mps``, lowered where
+needed so that the cart, braking at ``MAX_ACCEL_MPS2`` once a switch closes,
+stops within half the switch inset (``v^2 / (2 a) <= inset / 2``), well short
+of the hard end stop. On the way to the centre the loop also damps the
+pendulum's swing: the hanging pendulum's energy changes at ``m l a cos(th) w``,
+so ``a = -k cos(th) w`` takes energy out, and as ``cos(th) w`` is the rate of
+``sin(th)`` the velocity loop gets it as ``-k sin(th)`` added to its target.
+The rig is then ready for swing-up soon after homing ends.
+
 ``update`` takes raw cart positions (encoder counts / counts_per_m, no offset)
-and returns the drive command; :attr:`centre_raw_m` is the result.
+and returns the drive command; :attr:`centre_raw_m` is the result, and
+:attr:`phase` and :attr:`travelled_m` say how far it has got.
 """
 
 from __future__ import annotations
@@ -39,8 +49,9 @@ from sim_device.plant import PlantParams
 __all__ = ["Homing", "HomingPhase"]
 
 _VELOCITY_TIME_CONSTANT_S = 0.05
-_MAX_ACCEL_MPS2 = 1.0
+MAX_ACCEL_MPS2 = 2.0
 _POSITION_GAIN_PER_S = 2.0
+_SWING_DAMPING_PER_S = 0.5  # m/s^2 of cart acceleration per rad/s of pendulum rate, on the way back
 
 
 class HomingPhase(enum.Enum):
@@ -54,10 +65,12 @@ class HomingPhase(enum.Enum):
 class Homing:
     def __init__(self, params: PlantParams, settings: HomingSettings):
         self._drive = AccelerationDrive(params)
-        self._speed = settings.speed_mps
+        track = params.track
+        # Braking at MAX_ACCEL_MPS2 from the seek speed must end within half the switch inset.
+        self.speed_mps = min(settings.speed_mps, math.sqrt(MAX_ACCEL_MPS2 * track.switch_inset_m))
+        self._speed = self.speed_mps
         self._tolerance = settings.length_tolerance_m
         self._centre_tolerance = settings.centre_tolerance_m
-        track = params.track
         self._has_switches = track.has_limit_switches
         self.expected_travel_m = track.length_m - 2.0 * track.switch_inset_m
         self._search_m = 1.1 * track.length_m + 0.05
@@ -65,18 +78,23 @@ class Homing:
         self.centre_raw_m: float | None = None
         self.measured_travel_m: float | None = None
         self.message = ""
+        self.started = False  # False until the first start()
+        self.travelled_m = 0.0  # distance moved since the present phase began
         self._start_raw_m = 0.0
         self._negative_raw_m = 0.0
+        self._phase_start_raw_m = 0.0
 
     @property
     def finished(self) -> bool:
         return self.phase in (HomingPhase.DONE, HomingPhase.FAILED)
 
     def start(self, raw_x_m: float) -> None:
+        self.started = True
         self.centre_raw_m = None
         self.measured_travel_m = None
         self.message = ""
-        self._start_raw_m = raw_x_m
+        self.travelled_m = 0.0
+        self._start_raw_m = self._phase_start_raw_m = raw_x_m
         if self._has_switches:
             self.phase = HomingPhase.SEEK_NEGATIVE
         else:
@@ -89,8 +107,13 @@ class Homing:
         self.message = f"homing failed: {message}"
         return 0.0
 
+    def _enter(self, phase: HomingPhase, raw_x_m: float) -> None:
+        self.phase = phase
+        self._phase_start_raw_m = raw_x_m
+        self.travelled_m = 0.0
+
     def _velocity(self, target: float, v: float, theta: float, omega: float) -> float:
-        a = clamp((target - v) / _VELOCITY_TIME_CONSTANT_S, _MAX_ACCEL_MPS2)
+        a = clamp((target - v) / _VELOCITY_TIME_CONSTANT_S, MAX_ACCEL_MPS2)
         return self._drive.command_for(a, v, math.sin(theta), math.cos(theta), omega)
 
     def update(self, raw_x_m: float, v: float, theta: float, omega: float, switches: int) -> float:
@@ -99,12 +122,13 @@ class Homing:
         positive = bool(switches & SW_LIMIT_POS)
         if self.finished:
             return 0.0
+        self.travelled_m = abs(raw_x_m - self._phase_start_raw_m)
         if negative and positive:
             return self._fail("both limit switches closed at once (wiring fault?)")
         if self.phase is HomingPhase.SEEK_NEGATIVE:
             if negative:
                 self._negative_raw_m = raw_x_m
-                self.phase = HomingPhase.SEEK_POSITIVE
+                self._enter(HomingPhase.SEEK_POSITIVE, raw_x_m)
                 return self._velocity(0.0, v, theta, omega)
             if self._start_raw_m - raw_x_m > self._search_m:
                 return self._fail(
@@ -122,7 +146,7 @@ class Homing:
                         f"differs by more than homing.length_tolerance_m = {self._tolerance} m"
                     )
                 self.centre_raw_m = self._negative_raw_m + 0.5 * self.expected_travel_m
-                self.phase = HomingPhase.TO_CENTRE
+                self._enter(HomingPhase.TO_CENTRE, raw_x_m)
                 return self._velocity(0.0, v, theta, omega)
             if travel > self.expected_travel_m + self._tolerance + 0.05:
                 return self._fail(
@@ -135,5 +159,5 @@ class Homing:
             self.phase = HomingPhase.DONE
             self.message = f"homed: switch-to-switch travel {self.measured_travel_m:.4f} m"
             return 0.0
-        target = clamp(-_POSITION_GAIN_PER_S * offset, 2.0 * self._speed)
-        return self._velocity(target, v, theta, omega)
+        target = clamp(-_POSITION_GAIN_PER_S * offset, self._speed)
+        return self._velocity(target - _SWING_DAMPING_PER_S * math.sin(theta), v, theta, omega)
