@@ -24,15 +24,29 @@ Policies a client can rely on:
 - after ``subscribe`` (rate from ``args.rate_hz``, else ``api.status_rate_hz``,
   at most ``api.max_status_rate_hz``) the client gets one status line at once
   and then one per period, paced by absolute deadlines: a late tick is not
-  followed by a burst; subscribing again changes the rate.
+  followed by a burst; subscribing again changes the rate;
+- status is a snapshot: built at most every ``STATUS_REUSE_S`` and shared by
+  every request and stream line in that time (and built afresh after any
+  command, so a client sees its own command's effect);
+- each client's requests are rate limited (``api.client_requests_per_s``,
+  ``api.client_request_burst``: a faster client's next request simply waits),
+  and after each request the server yields, so a pipelined flood from one
+  client cannot hold the event loop the control cycle runs on;
+- beyond ``api.max_clients`` connections a new connection may still send one
+  ``estop`` (within ``ESTOP_LANE_READ_S``), which is carried out; anything
+  else gets the "too many clients" error. So an e-stop gets through whatever
+  other clients hold.
 """
 
 from __future__ import annotations
 
 import asyncio
+import contextlib
 import logging
+import math
 import os
 import stat
+import time
 from collections import deque
 from collections.abc import Callable
 from dataclasses import asdict, dataclass
@@ -45,10 +59,13 @@ from daemon.api.wire import (
     REFUSED,
     Request,
     RequestError,
+    encode_json,
     encode_line,
     error_reply,
     ok_reply,
     parse_request,
+    status_reply_line,
+    status_stream_line,
 )
 from daemon.config.service import ApiSettings
 from daemon.errors import CommandRefused, OperatorError
@@ -57,6 +74,12 @@ log = logging.getLogger(__name__)
 
 # How long a closing connection may take to flush what is already queued for it.
 CLOSE_GRACE_S = 1.0
+# A status snapshot is reused for requests and stream ticks within this long of being built
+# (and rebuilt at once after any command), so a flood of status requests costs a copy each.
+STATUS_REUSE_S = 0.02
+# A connection beyond api.max_clients may still send one e-stop; it has this long to send it.
+ESTOP_LANE_READ_S = 2.0
+ESTOP_COMMAND = "estop"
 # How long to wait for an existing socket to accept a connection before calling it live.
 LIVE_CHECK_TIMEOUT_S = 1.0
 
@@ -92,6 +115,8 @@ class ApiStats:
     status_lines_dropped: int = 0
     status_failures: int = 0
     stalled_clients_disconnected: int = 0
+    estops_beyond_the_limit: int = 0
+    rate_limit_waits: int = 0
 
 
 class _Client:
@@ -108,6 +133,8 @@ class _Client:
         self.period_s = 0.0
         self.next_due = 0.0
         self.status_dropped = 0
+        self.tokens = 0.0  # requests this client may still send at once (its rate limit)
+        self.tokens_at_s = -math.inf
 
     def _make_room(self) -> bool:
         """Free one slot if the queue is full by dropping its oldest status line; False if it holds only replies."""
@@ -175,6 +202,9 @@ class ApiServer:
         self._timer: TimerHandle | None = None
         self._timer_when = 0.0
         self._last_status_error = ""
+        self._status_json: bytes | None = None
+        self._status_built_at = -math.inf
+        self._over_limit_clients = 0
         self._stats = ApiStats()
 
     @property
@@ -246,10 +276,7 @@ class ApiServer:
     ) -> None:
         self._stats.connections += 1
         if len(self._clients) >= self._settings.max_clients:
-            self._stats.clients_turned_away += 1
-            message = f"too many clients (at most {self._settings.max_clients}); try again later"
-            writer.write(encode_line(error_reply(None, BAD_REQUEST, message)))
-            writer.close()
+            await self._serve_over_limit(reader, writer)
             return
         client = _Client(writer, self._settings.client_queue_lines, self._stats)
         await self._add_client(client)
@@ -267,10 +294,44 @@ class ApiServer:
             writer.close()
             await self._remove_client(client)
 
+    async def _serve_over_limit(
+        self, reader: asyncio.StreamReader, writer: asyncio.StreamWriter
+    ) -> None:
+        """A connection beyond ``api.max_clients``: it may send one e-stop, and nothing else.
+
+        So however many connections other clients hold, ``poise estop`` gets through. At most
+        ``max_clients`` such connections wait at once; beyond that they are turned away at once.
+        """
+        self._stats.clients_turned_away += 1
+        limit = self._settings.max_clients
+        message = f"too many clients (at most {limit}; beyond that only {ESTOP_COMMAND} is served); try again later"
+        reply = error_reply(None, BAD_REQUEST, message)
+        if self._over_limit_clients < limit:
+            self._over_limit_clients += 1
+            try:
+                async with asyncio.timeout(ESTOP_LANE_READ_S):
+                    line = await reader.readuntil(b"\n")
+                request = parse_request(line)
+                if request.cmd == ESTOP_COMMAND:
+                    self._stats.estops_beyond_the_limit += 1
+                    reply = self._execute(request)
+                else:
+                    reply = error_reply(request.id, BAD_REQUEST, message)
+            except RequestError as exc:
+                reply = error_reply(exc.request_id, BAD_REQUEST, message)
+            except (TimeoutError, ConnectionError, asyncio.IncompleteReadError, asyncio.LimitOverrunError):
+                pass
+            finally:
+                self._over_limit_clients -= 1
+        with contextlib.suppress(ConnectionError):
+            writer.write(encode_line(reply))
+        writer.close()
+
     async def _read_loop(self, reader: asyncio.StreamReader, client: _Client) -> None:
         while not client.closing:
             if not await self._wait_for_room(client):
                 return
+            await self._wait_for_token(client)
             try:
                 line = await reader.readuntil(b"\n")
             except asyncio.IncompleteReadError as end:
@@ -286,6 +347,22 @@ class ApiServer:
                 return
             if line.strip():
                 self._handle_line(client, line)
+            # A pipelined flood is already buffered and would be served without a break; give
+            # the control cycle and the other clients their turn after every request.
+            await asyncio.sleep(0)
+
+    async def _wait_for_token(self, client: _Client) -> None:
+        """Hold back a client's next request until its rate limit allows it (token bucket)."""
+        rate = self._settings.client_requests_per_s
+        burst = float(self._settings.client_request_burst)
+        now = time.monotonic()
+        client.tokens = min(burst, client.tokens + (now - client.tokens_at_s) * rate)
+        client.tokens_at_s = now
+        if client.tokens < 1.0:
+            self._stats.rate_limit_waits += 1
+            await asyncio.sleep((1.0 - client.tokens) / rate)
+            client.tokens, client.tokens_at_s = 1.0, time.monotonic()
+        client.tokens -= 1.0
 
     async def _wait_for_room(self, client: _Client) -> bool:
         """Hold back a client's next request while its queue is full of replies; False if it stalled."""
@@ -344,14 +421,20 @@ class ApiServer:
         if request.cmd == "subscribe":
             self._handle_subscribe(client, request)
         elif request.cmd == "status":
-            self._reply(client, self._call_target(request, self._target.status))
+            status_json = self._status_snapshot()
+            if status_json is None:
+                self._reply(client, self._call_target(request, self._target.status))
+            else:
+                client.send_reply(status_reply_line(request.id, status_json))
         else:
-            self._reply(
-                client,
-                self._call_target(
-                    request, lambda: self._target.execute(request.cmd, request.args, request.source)
-                ),
-            )
+            self._reply(client, self._execute(request))
+
+    def _execute(self, request: Request) -> dict:
+        """Carry out a command; the next status is built afresh, so it shows the command's effect."""
+        self._status_json = None
+        return self._call_target(
+            request, lambda: self._target.execute(request.cmd, request.args, request.source)
+        )
 
     def _call_target(self, request: Request, call: Callable[[], dict]) -> dict:
         try:
@@ -433,14 +516,26 @@ class ApiServer:
 
     def _status_line(self) -> bytes | None:
         """One encoded status line shared by every subscriber due now, or None if status() failed."""
+        status_json = self._status_snapshot()
+        return None if status_json is None else status_stream_line(status_json)
+
+    def _status_snapshot(self) -> bytes | None:
+        """The target's status as JSON, built at most every STATUS_REUSE_S; None if status() failed."""
+        assert self._clock is not None
+        now = self._clock.time()
+        if self._status_json is not None and now - self._status_built_at < STATUS_REUSE_S:
+            return self._status_json
         try:
-            return encode_line({"status": self._target.status()})
+            self._status_json = encode_json(self._target.status())
         except Exception as exc:
+            self._status_json = None
             self._stats.status_failures += 1
             if repr(exc) != self._last_status_error:
                 self._last_status_error = repr(exc)
                 log.exception("control API: status() failed; status lines skipped until it works")
             return None
+        self._status_built_at = now
+        return self._status_json
 
 
 async def _claim_socket_path(path: Path) -> None:

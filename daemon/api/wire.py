@@ -23,6 +23,7 @@ from daemon.api.commands import BadRequest, validate_args
 CLIENT_SOURCES = ("api", "cli", "dashboard")
 REQUEST_FIELDS = ("id", "cmd", "args", "source")
 ID_MAX_CHARS = 100
+ID_MAX_DIGITS = 15  # every such integer is exact as a JSON number in any client (2**53 > 10**15)
 
 # Error codes in replies.
 BAD_REQUEST = "bad_request"
@@ -58,12 +59,15 @@ def parse_request(line: bytes) -> Request:
         ) from None
     except RecursionError:
         raise RequestError("request is nested too deeply", None) from None
+    except ValueError as exc:  # e.g. an integer past Python's digit limit for int(str)
+        raise RequestError(f"request is not valid JSON ({exc})", None) from None
     if not isinstance(data, dict):
         raise RequestError("request must be a JSON object", None)
     request_id = data.get("id")
     if not _valid_id(request_id):
         raise RequestError(
-            f"request field 'id' must be an integer or a string of at most {ID_MAX_CHARS} characters",
+            f"request field 'id' must be an integer of at most {ID_MAX_DIGITS} digits or a string "
+            f"of at most {ID_MAX_CHARS} characters",
             None,
         )
     for name in data:
@@ -93,16 +97,33 @@ def parse_request(line: bytes) -> Request:
 def _valid_id(value: object) -> bool:
     if isinstance(value, bool):
         return False
-    return isinstance(value, int) or (isinstance(value, str) and len(value) <= ID_MAX_CHARS)
+    if isinstance(value, int):
+        return abs(value) < 10**ID_MAX_DIGITS
+    return isinstance(value, str) and len(value) <= ID_MAX_CHARS
 
 
-def encode_line(message: dict) -> bytes:
-    """One JSON line. NaN and infinities (a sensor not fitted) go out as null, so every line is strict JSON."""
+def encode_json(message: object) -> bytes:
+    """Compact strict JSON. NaN and infinities (a sensor not fitted) go out as null."""
     try:
         text = json.dumps(message, allow_nan=False, separators=(",", ":"))
     except ValueError:
         text = json.dumps(_finite_or_null(message), allow_nan=False, separators=(",", ":"))
-    return text.encode() + b"\n"
+    return text.encode()
+
+
+def encode_line(message: dict) -> bytes:
+    """One JSON line (see :func:`encode_json`), so every line is strict JSON."""
+    return encode_json(message) + b"\n"
+
+
+def status_reply_line(request_id: int | str, status_json: bytes) -> bytes:
+    """The reply to a status request, around an already encoded status object."""
+    return b'{"id":' + encode_json(request_id) + b',"ok":true,"result":' + status_json + b"}\n"
+
+
+def status_stream_line(status_json: bytes) -> bytes:
+    """One status stream line, around an already encoded status object."""
+    return b'{"status":' + status_json + b"}\n"
 
 
 def _finite_or_null(value: object) -> object:

@@ -41,7 +41,9 @@ class ApiSettings(Section):
     ``client_queue_lines`` bounds each client's outgoing queue: status lines beyond
     it are dropped and counted; when it is full of replies the client's further
     requests wait, and a client that reads nothing for ``stalled_client_timeout_s``
-    is disconnected.
+    is disconnected. ``client_requests_per_s`` and ``client_request_burst`` bound
+    what one client may ask (a token bucket; its requests wait beyond it). Beyond
+    ``max_clients`` connections, a new one may still send one e-stop.
     """
 
     socket_path: str = Field(default="/tmp/poise.sock", min_length=1)
@@ -51,6 +53,13 @@ class ApiSettings(Section):
     client_queue_lines: int = Field(default=64, ge=4, le=65536)
     max_clients: int = Field(default=16, ge=1, le=256)
     stalled_client_timeout_s: float = Field(default=10.0, gt=0.0, le=3600.0)
+    client_requests_per_s: float = Field(
+        default=200.0, gt=0.0, le=100_000.0,
+        description="each client's sustained request rate; faster requests wait (not refused)",
+    )
+    client_request_burst: int = Field(
+        default=50, ge=1, le=100_000, description="requests a client may send at once above that rate"
+    )
 
     @field_validator("socket_path")
     @classmethod
