@@ -35,10 +35,9 @@ SIZE = (140, 44)
 WAIT_LIMIT_S = 60.0  # a hang guard, not a speed requirement
 # The headless dashboard shares the test's event loop with the daemon, and drawing a whole
 # screen can hold the loop for a few hundred milliseconds on a loaded machine. In lockstep
-# that only pauses the rig (it samples when answered), so the host's silence limit is raised
-# from 5 samples to 2 s to keep the link watchdog from tripping on the dashboard's turns.
-SHARED_LOOP = "[interlocks]\nlink_timeout_samples = 1000\n"
-CATEGORY_0 = SHARED_LOOP + "[stop]\ncategory = 0\n"
+# that only pauses the rig (it samples when answered), and the host judges a lockstep rig's
+# silence on a longer wall-clock limit (daemon/runtime/watchdog.py), so the defaults stand.
+CATEGORY_0 = "[stop]\ncategory = 0\n"
 QUICK_RECONNECT = Backoff(first_s=0.05, max_s=0.2)
 
 
@@ -107,7 +106,7 @@ async def test_estop_key_during_balance_latches_estop_and_the_next_command_frame
 async def test_arm_asks_for_the_safety_caution_once_then_a_confirmation_and_cancel_sends_nothing(
     tmp_path,
 ):
-    async with running_service(tmp_path, extra=SHARED_LOOP, serve_api=True) as service:
+    async with running_service(tmp_path, serve_api=True) as service:
         service.execute("home", {}, "api")
         assert await reached(service, State.IDLE, State.FAULT) is State.IDLE
         app = dashboard(service)
@@ -142,7 +141,7 @@ async def test_arm_asks_for_the_safety_caution_once_then_a_confirmation_and_canc
 
 
 async def test_a_refused_command_is_shown_with_the_daemons_reason(tmp_path):
-    async with running_service(tmp_path, extra=SHARED_LOOP, serve_api=True) as service:
+    async with running_service(tmp_path, serve_api=True) as service:
         app = dashboard(service)
         async with app.run_test(size=SIZE) as pilot:
             await until(pilot, lambda: app.state == "IDLE", "the dashboard to show IDLE")
@@ -156,7 +155,7 @@ async def test_a_refused_command_is_shown_with_the_daemons_reason(tmp_path):
 
 
 async def test_a_command_the_state_does_not_allow_is_explained_and_not_sent(tmp_path):
-    async with running_service(tmp_path, extra=SHARED_LOOP, serve_api=True) as service:
+    async with running_service(tmp_path, serve_api=True) as service:
         app = dashboard(service)
         async with app.run_test(size=SIZE) as pilot:
             await until(pilot, lambda: app.state == "IDLE", "the dashboard to show IDLE")
@@ -168,7 +167,7 @@ async def test_a_command_the_state_does_not_allow_is_explained_and_not_sent(tmp_
 
 
 async def test_the_estop_key_works_on_a_question_and_closes_it(tmp_path):
-    async with running_service(tmp_path, extra=SHARED_LOOP, serve_api=True) as service:
+    async with running_service(tmp_path, serve_api=True) as service:
         service.execute("home", {}, "api")
         assert await reached(service, State.IDLE, State.FAULT) is State.IDLE
         app = dashboard(service)
@@ -192,7 +191,7 @@ async def test_the_dashboard_waits_for_the_daemon_shows_it_gone_and_reconnects_a
     async with app.run_test(size=SIZE) as pilot:
         await until(pilot, lambda: app.link.attempts >= 1, "a failed connection attempt")
         assert "NO DAEMON" in panel_text(app)
-        async with running_service(tmp_path, extra=SHARED_LOOP, serve_api=True) as service:
+        async with running_service(tmp_path, serve_api=True) as service:
             await until(pilot, lambda: app.state == "IDLE", "the dashboard to show IDLE")
             service.execute("estop", {}, "api")  # tells this daemon's status from the next one's
             await until(pilot, lambda: app.state == "ESTOP", "the dashboard to show ESTOP")
@@ -202,7 +201,7 @@ async def test_the_dashboard_waits_for_the_daemon_shows_it_gone_and_reconnects_a
         await pilot.press("space")  # nothing to send it to: the operator is told so
         await until(pilot, lambda: "E-STOP NOT DELIVERED" in notice(app), "the e-stop warning")
         assert "use the hardware e-stop" in notice(app)
-        async with running_service(tmp_path, extra=SHARED_LOOP, serve_api=True):
+        async with running_service(tmp_path, serve_api=True):
             await until(pilot, lambda: app.link.connected, "the dashboard to reconnect")
             await until(pilot, lambda: app.state == "IDLE", "the new daemon's status")
 

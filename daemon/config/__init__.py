@@ -32,6 +32,7 @@ from daemon.config.rig import (
 )
 from daemon.config.safety import InterlockSettings, StopSettings
 from daemon.config.service import ApiSettings, RecordingSettings
+from daemon.config.timeouts import timeout_problems
 
 __all__ = [
     "ConfigError",
@@ -73,6 +74,13 @@ class PoiseConfig(Section):
                 "the track centre, leaving the cart no room (track.length_m / 2 - track.switch_inset_m - "
                 "interlocks.soft_limit_inset_m must be above 0)"
             )
+        return self
+
+    @model_validator(mode="after")
+    def _timeouts_fit_the_track(self) -> PoiseConfig:
+        problems = timeout_problems(self)
+        if problems:
+            raise ValueError("; ".join(problems))
         return self
 
 

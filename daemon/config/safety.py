@@ -62,8 +62,20 @@ class InterlockSettings(Section):
         default=None, gt=0.0, le=1000.0, description="unset: not checked"
     )
     # Link and loop
-    link_timeout_samples: int = Field(
-        default=5, ge=2, le=10000, description="trip if no telemetry for this many sample periods"
+    # A silent host or link leaves the last drive command applied until a watchdog acts; the
+    # config check (daemon/config/timeouts.py) refuses timeouts under which the cart, at
+    # max_cart_speed_mps, could run past the room between the soft limits and the end stops.
+    link_timeout_ms: float = Field(
+        default=30.0,
+        ge=1.0,
+        le=5000.0,
+        description="trip if no telemetry arrives for this long (at least 3 sample periods)",
+    )
+    loop_stall_ms: float = Field(
+        default=30.0,
+        ge=1.0,
+        le=5000.0,
+        description="trip if the daemon's event loop (and with it the control cycle) is held this long",
     )
     gap_rate_per_s: float = Field(
         default=5.0, gt=0.0, le=10000.0, description="sequence gaps tolerated per second"
@@ -74,16 +86,22 @@ class InterlockSettings(Section):
     link_error_burst: int = Field(
         default=10, ge=1, le=100000, description="bucket size for gaps and CRC failures"
     )
-    overrun_budget_us: float = Field(
-        default=1000.0,
+    # A cycle overruns when its command goes out later than the budget after its frame came in
+    # (by default one sample period: the device would apply it a sample late). An ordinary
+    # desktop kernel pre-empts the daemon now and then, so single overruns are expected; a
+    # host that cannot keep up overruns on a large share of its samples.
+    overrun_budget_us: float | None = Field(
+        default=None,
         gt=0.0,
         le=1e6,
-        description="a cycle (frame in to command out) longer than this overruns",
+        description="a cycle (frame in to command out) longer than this overruns; unset: one sample period",
     )
-    overrun_rate_per_s: float = Field(
-        default=2.0, gt=0.0, le=10000.0, description="overruns tolerated per second"
+    overrun_share: float = Field(
+        default=0.05,
+        gt=0.0,
+        le=0.5,
+        description="trip when more than this share of a second's samples overran",
     )
-    overrun_burst: int = Field(default=5, ge=1, le=100000, description="bucket size for overruns")
 
     # Pre-arm checks
     prearm_rate_tolerance: float = Field(

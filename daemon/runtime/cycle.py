@@ -171,7 +171,7 @@ class ControlCycle:
         self._on_link_lost = on_link_lost
         self._on_telemetry_resumed = on_telemetry_resumed
         self.limit = config.drive.limit
-        self._overrun_budget_ns = round(config.interlocks.overrun_budget_us * 1000.0)  # int: compared with ints
+        self._overrun_budget_ns = round(self.monitor.limits.overrun_budget_us * 1000.0)  # int: compared with ints
         self.link: Link | None = None
         self.fd = -1
         self.timing = TimingRings()

@@ -26,7 +26,9 @@ import asyncio
 import contextlib
 import gc
 import logging
+import math
 import signal
+import time
 import sys
 from importlib import metadata
 
@@ -40,6 +42,7 @@ from daemon.link import Link, LinkDown, Port, open_port
 from daemon.recording import Recorder, RecordingError, RunMetadata
 from daemon.runtime.cycle import ControlCycle
 from daemon.runtime.embedded_sim import SimOptions, start_embedded_rig
+from daemon.runtime.timing import LagRing, TimingDigest
 from daemon.runtime.watchdog import run_watchdog
 from daemon.supervisor import Action, Event, State, Supervisor, Trip, state_code_table
 from daemon.supervisor.machine import LogEntry
@@ -63,6 +66,9 @@ RECONNECT_INTERVAL_S = 1.0
 FIRST_TELEMETRY_TIMEOUT_S = 5.0
 STOP_WAIT_S = 10.0
 TRIP_FRAMES_KEPT = 8
+# Status figures from the timing rings are worked out at most this often (status requests and
+# stream ticks in between reuse them): a digest costs a fraction of a millisecond, on the loop.
+TIMING_DIGEST_MAX_AGE_S = 0.25
 # The recorder's writer thread shares the interpreter lock with the control cycle; Python hands
 # the lock over every 5 ms by default, a whole overrun budget. 0.5 ms bounds that wait.
 GIL_SWITCH_INTERVAL_S = 0.0005  # last link frames each way stored with a trip event
@@ -111,6 +117,9 @@ class PoiseService:
             on_link_lost=self._link_lost,
             on_telemetry_resumed=self._telemetry_resumed,
         )
+        self.loop_lag = LagRing()
+        self._digest: TimingDigest | None = None
+        self._digest_at_s = -math.inf
         self._tasks: list[asyncio.Task] = []
         self._reconnect_task: asyncio.Task | None = None
         self._shutdown_requested: asyncio.Event | None = None
@@ -150,7 +159,7 @@ class PoiseService:
         self._tasks.append(
             asyncio.create_task(
                 run_watchdog(self.cycle, self.supervisor, self._expecting_telemetry,
-                             self._watchdog_trip, self.rate_known),
+                             self._watchdog_trip, self.rate_known, self.loop_lag),
                 name="poise-watchdog",
             )
         )
@@ -351,45 +360,84 @@ class PoiseService:
 
         self.link.send(ClearFaults).add_done_callback(answered)
 
+    def timing_digest(self) -> TimingDigest:
+        """The cycle's timing figures, at most TIMING_DIGEST_MAX_AGE_S old."""
+        now_s = time.monotonic()
+        if self._digest is None or now_s - self._digest_at_s >= TIMING_DIGEST_MAX_AGE_S:
+            self._digest = self.cycle.timing.digest()
+            self._digest_at_s = now_s
+        return self._digest
+
     def status(self) -> dict:
+        digest = self.timing_digest()
         status = self.supervisor.status()
-        status["link"] = self.link_status()
+        status["homing"] = self.homing_status()
+        status["link"] = self.link_status(digest)
+        status["loop"] = self.loop_status(digest)
         status["recording"] = self.recording_status()
         status["cycle"] = {
             "samples": self.cycle.samples,
             "missed": self.cycle.missed,
-            "compute_us": self.cycle.timing.compute_us(),
-            "stages_us": self.cycle.timing.stage_us(),
+            "compute_us": {"p50": digest.compute_p50_us, "p99": digest.compute_p99_us},
+            "stages_us": digest.stages_us,
         }
         return status
 
-    def link_status(self) -> dict:
+    def homing_status(self) -> dict:
+        """Where homing is: its phase, how far the cart has gone, and its result."""
+        homing = self.cycle.homing
+        return {
+            "phase": homing.phase.value if homing.started else None,
+            "travel_m": homing.travelled_m,
+            "expected_travel_m": homing.expected_travel_m,
+            "measured_travel_m": homing.measured_travel_m,
+            "message": homing.message,
+        }
+
+    def loop_status(self, digest: TimingDigest) -> dict:
+        """How late the event loop ran (the watchdog's ticks) and the longest wait between reads."""
+        lag = self.loop_lag.figures_ms()
+        limits = self.supervisor.limits
+        return {
+            "lag_ms_p50": lag["p50"],
+            "lag_ms_p99": lag["p99"],
+            "lag_ms_max": lag["max"],
+            "lag_ms_worst": lag["worst"],
+            "stall_limit_ms": limits.loop_stall_s * 1000.0,
+            "read_gap_ms_worst": digest.worst_gap_us / 1000.0,
+            "link_timeout_ms": limits.link_timeout_s * 1000.0,
+        }
+
+    def link_status(self, digest: TimingDigest | None = None) -> dict:
         link, cycle = self.link, self.cycle
-        latency = cycle.timing.latency_us()
+        digest = digest or self.timing_digest()
         stats = link.stats if link is not None else None
         return {
             "connected": self.supervisor.machine.link_up and link is not None,
             "rate_hz": self.supervisor.link_rate_hz,
-            "latency_us_p50": latency["p50"],
-            "latency_us_p99": latency["p99"],
+            "latency_us_p50": digest.latency_p50_us,
+            "latency_us_p99": digest.latency_p99_us,
             "gaps": stats.gaps if stats else 0,
             "crc_failures": stats.crc_failures if stats else 0,
             "frames_rx": stats.frames_rx if stats else 0,
             "frames_tx": stats.frames_tx if stats else 0,
             "missed": cycle.missed,
-            "summary": self.link_summary(),
+            "summary": self.link_summary(digest),
         }
 
-    def link_summary(self) -> str:
-        """One line for logs and bug reports: link counters, misses, latency."""
+    def link_summary(self, digest: TimingDigest | None = None) -> str:
+        """One line for logs and bug reports: link counters, misses, latency, loop lag."""
         if self.link is None:
             return "link: not connected"
-        latency = self.cycle.timing.latency_us()
+        digest = digest or self.timing_digest()
+        lag = self.loop_lag.figures_ms()
         return (
             f"{self.link.stats.summary()} missed={self.cycle.missed} "
             f"heartbeats={self.link.heartbeats_sent} device_resets={self.link.device_resets} "
-            f"tx_bytes_dropped={self.link.tx_bytes_dropped} latency_us p50={latency['p50']:.1f} "
-            f"p99={latency['p99']:.1f} max={latency['max']:.1f}"
+            f"tx_bytes_dropped={self.link.tx_bytes_dropped} latency_us p50={digest.latency_p50_us:.1f} "
+            f"p99={digest.latency_p99_us:.1f} max={digest.latency_max_us:.1f} "
+            f"loop_lag_ms p99={lag['p99']:.2f} max={lag['max']:.2f} "
+            f"read_gap_ms max={digest.worst_gap_us / 1000.0:.2f}"
         )
 
     def recording_status(self) -> dict:
@@ -518,10 +566,12 @@ class PoiseService:
                 self.link.poll()
             if loop.time() >= next_summary:
                 next_summary += SUMMARY_INTERVAL_S
-                line = self.link_summary()
+                digest = self.timing_digest()
+                line = self.link_summary(digest)
                 log.info("%s", line)
                 if self.recorder is not None:
                     self.recorder.put_event("link.summary", "link", {"summary": line})
+                    self.recorder.put_event("loop.lag", "daemon", self.loop_status(digest))
 
 
 def config_mismatches(config: PoiseConfig, hello: DeviceHello) -> tuple[str, ...]:

@@ -1,16 +1,19 @@
 """The host watchdog: an asyncio task that stops the rig when telemetry stops or the cycle stalls.
 
-It ticks every half link timeout. Two things trip it while telemetry is
+It ticks every half link timeout (at most every ``MAX_TICK_S``), and how late
+each tick runs is the event loop's lag, kept in a :class:`LagRing` for status,
+the dashboard and the recording. Two things trip it while telemetry is
 expected:
 
-- ``link.timeout``: no telemetry for ``interlocks.link_timeout_samples`` sample
-  periods (:func:`daemon.supervisor.link_timeout_trip`). A rig in lockstep
+- ``link.timeout``: no telemetry for ``interlocks.link_timeout_ms``
+  (:func:`daemon.supervisor.link_timeout_trip`). A rig in lockstep
   (Telemetry status bit ST_LOCKSTEP) samples only when the host answers, so
-  there silence is judged against at least LOCKSTEP_SILENCE_S of wall-clock time,
-  and not on a tick that itself ran late: a starved host process (a loaded
-  shared machine) has simply not read what the rig sent.
-- ``loop.stall``: the watchdog itself ran later than the link timeout, which
-  means the event loop, and with it the control cycle, was blocked that long.
+  there silence is judged against at least LOCKSTEP_SILENCE_S of wall-clock time.
+  Silence is never judged on a tick that itself ran late: telemetry that came
+  meanwhile may still be waiting, unread, behind it.
+- ``loop.stall``: the watchdog itself ran more than ``interlocks.loop_stall_ms``
+  late, which means the event loop, and with it the control cycle, was
+  blocked that long.
 
 The device's own watchdog is the backstop for a host that cannot run at all.
 Each tick also reports the measured telemetry rate and the device watchdog bit
@@ -25,11 +28,13 @@ from collections.abc import Callable
 from dataclasses import replace
 
 from daemon.runtime.cycle import ControlCycle
+from daemon.runtime.timing import LagRing
 from daemon.supervisor import Action, InterlockLimits, Supervisor, Trip, link_timeout_trip
 from protocol import ST_LOCKSTEP, ST_WATCHDOG_ACTIVE
 
-LOCKSTEP_SILENCE_S = 0.75
+LOCKSTEP_SILENCE_S = 2.0
 RATE_WINDOW_S = 0.1
+MAX_TICK_S = 0.01  # the lag is sampled at least this often
 
 
 async def run_watchdog(
@@ -38,11 +43,13 @@ async def run_watchdog(
     expecting: Callable[[], bool],
     on_trip: Callable[[Trip], None],
     rate_known: asyncio.Event,
+    lag: LagRing,
 ) -> None:
     """Run until cancelled. ``expecting()`` says whether telemetry should be flowing now;
-    ``rate_known`` is set once the first telemetry rate has been reported to the supervisor."""
+    ``rate_known`` is set once the first telemetry rate has been reported to the supervisor;
+    every tick's lateness goes into ``lag``."""
     limits = supervisor.limits
-    tick_s = max(0.001, limits.link_timeout_s / 2.0)
+    tick_s = min(MAX_TICK_S, max(0.001, limits.link_timeout_s / 2.0))
     loop = asyncio.get_running_loop()
     due = loop.time() + tick_s
     rate_samples, rate_t_s, rate_wall_s = cycle.samples + cycle.missed, cycle.t_s, loop.time()
@@ -51,22 +58,25 @@ async def run_watchdog(
         now = loop.time()
         late_s = now - due
         due = now + tick_s
+        lag.note(late_s)
         if not expecting() or not cycle.telemetry_flowing:
             continue
         tm = cycle.last_telemetry
         lockstep = tm is not None and tm.status & ST_LOCKSTEP
-        if late_s > limits.link_timeout_s and not lockstep:
+        if late_s > limits.loop_stall_s and not lockstep:
             on_trip(
                 Trip(
                     "loop.stall",
                     Action.DRIVE_OFF,
                     f"the host event loop was blocked for {late_s * 1000:.1f} ms "
-                    f"(link timeout {limits.link_timeout_s * 1000:.1f} ms)",
-                    {"blocked_s": late_s, "limit_s": limits.link_timeout_s},
+                    f"(interlocks.loop_stall_ms = {limits.loop_stall_s * 1000:g})",
+                    {"blocked_s": late_s, "limit_s": limits.loop_stall_s},
                 )
             )
             continue
-        if lockstep and late_s > tick_s:
+        if late_s > tick_s:
+            # This tick ran late: telemetry that arrived meanwhile may still wait unread behind
+            # it. Judge the silence on the next tick, once the cycle's reader has had its turn.
             continue
         silent_limit = limits
         if lockstep and limits.link_timeout_s < LOCKSTEP_SILENCE_S:

@@ -91,6 +91,7 @@ class InterlockLimits:
     supply_max_v: float  # +inf when not checked
     estop_action: Action  # from the configured stop category
     link_timeout_s: float
+    loop_stall_s: float
     sample_period_s: float
     overrun_budget_us: float
 
@@ -113,9 +114,12 @@ class InterlockLimits:
             supply_min_v=-INF if lim.supply_min_v is None else lim.supply_min_v,
             supply_max_v=INF if lim.supply_max_v is None else lim.supply_max_v,
             estop_action=Action.DRIVE_OFF if config.stop.category == 0 else Action.CONTROLLED_STOP,
-            link_timeout_s=lim.link_timeout_samples * period_s,
+            link_timeout_s=lim.link_timeout_ms / 1000.0,
+            loop_stall_s=lim.loop_stall_ms / 1000.0,
             sample_period_s=period_s,
-            overrun_budget_us=lim.overrun_budget_us,
+            overrun_budget_us=(
+                period_s * 1e6 if lim.overrun_budget_us is None else lim.overrun_budget_us
+            ),
         )
 
 
@@ -351,7 +355,7 @@ def _fault_flag_trip(faults: int) -> Trip:
 
 
 def link_timeout_trip(now_s: float, last_rx_s: float, limits: InterlockLimits) -> Trip | None:
-    """Trip when no telemetry has arrived for ``link_timeout_samples`` sample periods."""
+    """Trip when no telemetry has arrived for ``interlocks.link_timeout_ms``."""
     silent_s = now_s - last_rx_s
     if silent_s <= limits.link_timeout_s:
         return None
@@ -397,7 +401,9 @@ class LinkErrorMonitor:
         self.limits = InterlockLimits.from_config(config)
         self.gaps = TokenBucket(lim.gap_rate_per_s, lim.link_error_burst)
         self.crc = TokenBucket(lim.crc_rate_per_s, lim.link_error_burst)
-        self.overruns = TokenBucket(lim.overrun_rate_per_s, lim.overrun_burst)
+        # overrun_share of the samples, sustained over a second, fills the bucket.
+        overruns_per_s = lim.overrun_share * config.sampling.rate_hz
+        self.overruns = TokenBucket(overruns_per_s, overruns_per_s)
         self._gaps_seen = 0
         self._crc_seen = 0
 

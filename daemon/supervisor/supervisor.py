@@ -27,7 +27,7 @@ from daemon.supervisor.interlocks import (
 )
 from daemon.supervisor.machine import LogEntry, Output, StateMachine
 from daemon.supervisor.prechecks import MOTION_COMMANDS, Health, PrecheckLimits, prearm_failures
-from daemon.supervisor.states import COMMAND_NAMES, Command, Event, State
+from daemon.supervisor.states import COMMAND_NAMES, LATCHED_STATES, Command, Event, State
 from protocol.messages import SW_ESTOP_BUTTON
 
 _ALL_CHECKS = Checks.TRACK | Checks.SWITCHES | Checks.MOTION | Checks.PENDULUM_RATE
@@ -187,7 +187,13 @@ class Supervisor:
         return new_trip
 
     def trip(self, found: Trip, t_s: float, source: str = "interlock") -> None:
-        """Act on a trip found by any interlock (per-sample, link watchdog, error rates)."""
+        """Act on a trip found by any interlock (per-sample, link watchdog, error rates).
+
+        A trip already latched under the same name changes nothing and is not logged again.
+        """
+        m = self.machine
+        if m.state in LATCHED_STATES and any(f.name == found.name for f in m.faults):
+            return
         if found.estop:
             event = Event.ESTOP_BUTTON
             source = "rig-button"
