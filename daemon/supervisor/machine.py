@@ -29,7 +29,7 @@ from __future__ import annotations
 
 import logging
 import math
-from collections import deque
+from collections import Counter, deque
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from enum import IntEnum
@@ -108,6 +108,7 @@ class StateMachine:
         self.setpoint_m = 0.0
         self.excite_args: dict[str, float | str] = {}
         self.faults: list[Fault] = []
+        self.fault_counts: Counter[str] = Counter()  # how often each fault has latched since start
         self.events: deque[LogEntry] = deque(maxlen=EVENT_HISTORY)
         self.retries_left = 0
         self._after_stop = State.IDLE
@@ -276,6 +277,7 @@ class StateMachine:
             self.faults.append(Fault(trip.name, trip.reason, t_s, dict(trip.values)))
         else:
             self.faults.append(Fault(name, cause or name, t_s))
+        self.fault_counts[name] += 1
         if action is Action.DRIVE_OFF:
             self._drive_off()
         elif self.output is Output.CONTROL:

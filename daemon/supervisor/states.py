@@ -126,6 +126,26 @@ TRANSITIONS: dict[tuple[State, Trigger], tuple[State, ...]] = _build()
 
 COMMAND_NAMES = frozenset(c.value for c in Command)
 
+#: The workflow's usual next step from each state (homed, not homed), or None where there is none.
+_NEXT: dict[State, tuple[Command | None, Command | None]] = {
+    State.DISCONNECTED: (None, None),
+    State.IDLE: (Command.ARM, Command.HOME),
+    State.HOMING: (None, None),
+    State.READY: (Command.SWING_UP, Command.SWING_UP),
+    State.SWING_UP: (None, None),
+    State.BALANCE: (Command.STOP, Command.STOP),
+    State.STOPPING: (None, None),
+    State.EXCITE: (None, None),
+    State.FAULT: (Command.RESET, Command.RESET),
+    State.ESTOP: (Command.RESET, Command.RESET),
+}
+
+
+def suggested_command(state: State, homed: bool) -> str | None:
+    """The command an operator would usually send next (shown as "next: ..."), or None."""
+    command = _NEXT[state][0 if homed else 1]
+    return None if command is None else command.value
+
 
 def state_code_table() -> dict[int, str]:
     """Code -> name, stored with each recorded run."""

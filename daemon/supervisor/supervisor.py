@@ -25,9 +25,17 @@ from daemon.supervisor.interlocks import (
     Trip,
     stopping_distance_m,
 )
+from daemon.supervisor.fault_hints import fault_hint
 from daemon.supervisor.machine import LogEntry, Output, StateMachine
 from daemon.supervisor.prechecks import MOTION_COMMANDS, Health, PrecheckLimits, prearm_failures
-from daemon.supervisor.states import COMMAND_NAMES, LATCHED_STATES, Command, Event, State
+from daemon.supervisor.states import (
+    COMMAND_NAMES,
+    LATCHED_STATES,
+    Command,
+    Event,
+    State,
+    suggested_command,
+)
 from protocol.messages import SW_ESTOP_BUTTON
 
 _ALL_CHECKS = Checks.TRACK | Checks.SWITCHES | Checks.MOTION | Checks.PENDULUM_RATE
@@ -125,8 +133,17 @@ class Supervisor:
             "drive_limit": self.config.drive.limit,
             "setpoint_m": m.setpoint_m,
             "interlocks": self.interlock_report(),
+            "homed": m.homed,
+            "next": suggested_command(m.state, m.homed),
             "faults": [
-                {"reason": f"{f.name}: {f.reason}", "t_s": f.t_s, "values": f.values}
+                {
+                    "name": f.name,
+                    "reason": f"{f.name}: {f.reason}",
+                    "t_s": f.t_s,
+                    "values": f.values,
+                    "hint": fault_hint(f.name),
+                    "count": m.fault_counts[f.name],
+                }
                 for f in m.faults
             ],
             "events": [
