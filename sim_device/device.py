@@ -372,6 +372,8 @@ class SimulatedDevice:
                 self.plant.step(self.drive_output, dt_us * 1e-6)
                 self.t_us += dt_us
                 self.sim_time_us += dt_us
+                if self.sim_time_us >= self.sensors.next_block_us:
+                    self.sensors.start_block(self.sim_time_us)
         if self.sim_time_us >= self.schedule.next_at_us:
             for event in self.schedule.due(self.sim_time_us):
                 self.apply_fault(event)

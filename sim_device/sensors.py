@@ -66,9 +66,17 @@ def wrap_i32(value: int) -> int:
 class Sensors:
     """Turns the plant's true state into encoder counts and sample times."""
 
+    #: The random draws restart from a seed of their own every this much simulated time, so what
+    #: the sensors read at a given simulated time depends on the seed and that time only, not on
+    #: how many samples came before (a host that starts its work a few samples later, as the
+    #: wall clock has it, still sees the same noise from a given instant on).
+    BLOCK_US = 1_000_000
+
     def __init__(self, params: SensorParams, seed: int = 0):
         self.params = params
+        self._seed = seed
         self._rng = random.Random(seed)
+        self.next_block_us = self.BLOCK_US  # when the next block of draws begins (simulated µs)
         self.cart_offset_counts = 0
         self.pendulum_offset_counts = 0
         self.cart_dead_at_m: float | None = None
@@ -76,6 +84,12 @@ class Sensors:
         self._pendulum_counts_per_rev = params.pendulum_counts_per_rev
         self._cart_noise_m = params.cart_noise_counts / params.cart_counts_per_m
         self._pendulum_noise_rad = params.pendulum_noise_counts * TWO_PI / params.pendulum_counts_per_rev
+
+    def start_block(self, sim_time_us: int) -> None:
+        """Begin the block of draws that ``sim_time_us`` falls in (the device calls this on time)."""
+        block = sim_time_us // self.BLOCK_US
+        self._rng.seed(hash((self._seed, block)))
+        self.next_block_us = (block + 1) * self.BLOCK_US
 
     def glitch(self, encoder: str, counts: int) -> None:
         """The ``"cart"`` or ``"pendulum"`` encoder miscounts by ``counts`` and stays off by that much."""

@@ -2,9 +2,15 @@
 
 from __future__ import annotations
 
+import os
+import stat
+from pathlib import Path
+
 import pytest
 
+from daemon.api.paths import control_socket_path, make_private_dir
 from daemon.config import ConfigError, demo_config_path, load_config, parse_config
+from daemon.errors import OperatorError
 
 # Linux struct sockaddr_un has sun_path[108], including the terminating NUL
 # (Linux man-pages, unix(7)), so 107 bytes of path is the most that binds.
@@ -13,16 +19,28 @@ SUN_PATH_BYTES = 108
 
 def demo_with(section_lines: str) -> str:
     text = demo_config_path().read_text()
-    return text.replace(
-        '[api]\nsocket_path = "/tmp/poise-kestrel-1.sock"', "[api]\n" + section_lines
-    )
+    assert "\n[api]\n" in text
+    return text.replace("\n[api]\n", "\n[api]\n" + section_lines + "\n")
 
 
-def test_demo_rig_serves_on_its_own_socket_with_default_limits():
-    api = load_config(demo_config_path()).api
-    assert api.socket_path == "/tmp/poise-kestrel-1.sock"
-    assert api.status_rate_hz <= api.max_status_rate_hz
-    assert api.max_line_bytes == 65536
+def test_demo_rig_serves_on_this_users_own_socket_with_default_limits(monkeypatch):
+    config = load_config(demo_config_path())
+    assert config.api.socket_path is None
+    monkeypatch.delenv("XDG_RUNTIME_DIR", raising=False)
+    assert control_socket_path(config) == Path(f"/tmp/poise-{os.getuid()}/kestrel-1.sock")
+    monkeypatch.setenv("XDG_RUNTIME_DIR", "/run/user/1234")
+    assert control_socket_path(config) == Path("/run/user/1234/poise/kestrel-1.sock")
+    assert config.api.status_rate_hz <= config.api.max_status_rate_hz
+    assert config.api.max_line_bytes == 65536
+
+
+def test_the_runtime_folder_is_made_owner_only_and_refused_when_open_to_others(tmp_path):
+    folder = tmp_path / "poise"
+    make_private_dir(folder)
+    assert stat.S_IMODE(folder.stat().st_mode) == 0o700
+    folder.chmod(0o755)
+    with pytest.raises(OperatorError, match=r"open to other users \(mode 755\); chmod 700"):
+        make_private_dir(folder)
 
 
 def test_longest_socket_path_that_fits_sockaddr_un_is_accepted():

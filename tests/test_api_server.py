@@ -6,6 +6,7 @@ from __future__ import annotations
 import asyncio
 import math
 import os
+import pwd
 import socket
 import stat
 
@@ -565,12 +566,13 @@ async def test_socket_file_is_owner_only_and_removed_on_close(socket_path, rig):
     assert not socket_path.exists()
 
 
-async def test_a_second_server_on_a_live_socket_is_refused(socket_path, rig):
+async def test_a_second_server_on_a_live_socket_is_refused_naming_who_holds_it(socket_path, rig):
     async with ApiServer(rig, settings(socket_path)):
-        with pytest.raises(
-            OperatorError, match=f"another Poise daemon is already serving on {socket_path}"
-        ):
+        with pytest.raises(OperatorError) as refused:
             await ApiServer(RigDouble(), settings(socket_path)).start()
+        user = pwd.getpwuid(os.getuid()).pw_name
+        assert str(refused.value).startswith(f"another Poise daemon (pid {os.getpid()}, user {user}: ")
+        assert str(refused.value).endswith(f") is already serving on {socket_path}")
         async with await ApiClient.connect(socket_path) as client:  # the first one still serves
             await client.request("stop")
     assert rig.executed == [("stop", {}, "api")]

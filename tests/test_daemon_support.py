@@ -43,8 +43,8 @@ def rig_config_text(
             line = f"{key} = {edits[key]}"
         elif line.startswith("db_path"):
             line = f'db_path = "{tmp_path / "runs.db"}"'
-        elif line.startswith("socket_path"):
-            line = f'socket_path = "{tmp_path / "poise.sock"}"'
+        elif line == "[api]":
+            line += f'\nsocket_path = "{tmp_path / "poise.sock"}"'
         lines.append(line)
     return "\n".join(lines) + "\n" + extra
 
@@ -61,11 +61,18 @@ def write_rig_config(
 async def running_service(
     tmp_path: Path, *, base: Path = KESTREL, extra: str = "", faults: FaultPlan | None = None,
     serve_api: bool = False, lockstep: bool = True, edits: dict[str, str] | None = None,
-    supply_v: float | None = None,
+    supply_v: float | None = None, encoder_noise_counts: float = 0.0,
 ) -> AsyncIterator[PoiseService]:
-    """The daemon on the built-in simulated rig; ``supply_v`` fits the rig a supply measurement."""
+    """The daemon on the built-in simulated rig; ``supply_v`` fits the rig a supply measurement.
+
+    The rig's encoders have no noise beyond quantisation unless ``encoder_noise_counts`` is given,
+    so a test's figures do not depend on a seed.
+    """
     text = rig_config_text(tmp_path, base, extra, edits)
-    options = SimOptions(lockstep=lockstep, faults=faults or FaultPlan(), supply_v=supply_v)
+    options = SimOptions(
+        lockstep=lockstep, faults=faults or FaultPlan(), supply_v=supply_v,
+        encoder_noise_counts=encoder_noise_counts,
+    )
     service = PoiseService(parse_config(text), text, sim=options, serve_api=serve_api)
     await service.start()
     try:

@@ -64,3 +64,19 @@ def test_a_bad_disturbance_is_one_line_naming_the_option(tmp_path, capsys):
     assert main(["session", "--config", str(config), "--sim", "--disturb", "soon:lots"]) == 2
     err = capsys.readouterr().err.strip()
     assert err.count("\n") == 0 and "--disturb 'soon:lots'" in err
+
+
+def test_the_seed_chooses_the_simulated_encoders_noise(tmp_path, capsys):
+    def balance_rms(seed: int, folder: str) -> float:
+        (tmp_path / folder).mkdir()
+        config = write_rig_config(tmp_path / folder, KESTREL)
+        status, summary = run_cli(
+            capsys, "session", "--config", str(config), "--sim", "--duration", "2",
+            "--seed", str(seed), "--json",
+        )
+        assert status == 0, summary
+        return summary["balance_rms_angle_deg"]
+
+    first, again, other = balance_rms(1, "a"), balance_rms(1, "b"), balance_rms(2, "c")
+    assert first == again  # lockstep and seeded: the same run twice
+    assert other != first

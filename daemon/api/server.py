@@ -45,7 +45,10 @@ import contextlib
 import logging
 import math
 import os
+import pwd
+import socket
 import stat
+import struct
 import time
 from collections import deque
 from collections.abc import Callable
@@ -67,6 +70,7 @@ from daemon.api.wire import (
     status_reply_line,
     status_stream_line,
 )
+from daemon.api.paths import make_private_dir, runtime_dir
 from daemon.config.service import ApiSettings
 from daemon.errors import CommandRefused, OperatorError
 
@@ -187,13 +191,23 @@ class _Client:
 
 
 class ApiServer:
-    """Serve ``target`` on ``settings.socket_path``. Use ``async with`` or start()/close()."""
+    """Serve ``target`` on ``path`` (default ``settings.socket_path``). Use ``async with`` or start()/close()."""
 
-    def __init__(self, target: CommandTarget, settings: ApiSettings, *, clock: Clock | None = None):
+    def __init__(
+        self,
+        target: CommandTarget,
+        settings: ApiSettings,
+        *,
+        path: str | Path | None = None,
+        clock: Clock | None = None,
+    ):
         self._target = target
         self._settings = settings
         self._clock = clock
-        self._path = Path(settings.socket_path)
+        where = path if path is not None else settings.socket_path
+        if where is None:
+            raise ValueError("no control socket path: give path or settings.socket_path")
+        self._path = Path(where)
         self._server: asyncio.AbstractServer | None = None
         self._inode: int | None = None
         self._clients: set[_Client] = set()
@@ -222,6 +236,8 @@ class ApiServer:
         """Create the socket (mode 0600); refuse if another daemon is live on it, replace a stale one."""
         if self._clock is None:
             self._clock = asyncio.get_running_loop()
+        if self._path.parent == runtime_dir():
+            make_private_dir(self._path.parent)
         await _claim_socket_path(self._path)
         old_umask = os.umask(0o177)
         try:
@@ -563,5 +579,29 @@ async def _claim_socket_path(path: Path) -> None:
         raise OperatorError(
             f"cannot check existing control socket {path}: {exc.strerror}"
         ) from None
+    holder = _who_holds(writer)
     writer.close()
-    raise OperatorError(f"another Poise daemon is already serving on {path}")
+    raise OperatorError(f"another Poise daemon{holder} is already serving on {path}")
+
+
+def _who_holds(writer: asyncio.StreamWriter) -> str:
+    """' (pid N, user NAME: COMMAND)' for the process at the other end of a Unix socket, or ''."""
+    sock = writer.get_extra_info("socket")
+    if sock is None or not hasattr(socket, "SO_PEERCRED"):
+        return ""
+    try:
+        creds = sock.getsockopt(socket.SOL_SOCKET, socket.SO_PEERCRED, struct.calcsize("3i"))
+    except OSError:
+        return ""
+    pid, uid, _gid = struct.unpack("3i", creds)
+    try:
+        user = pwd.getpwuid(uid).pw_name
+    except KeyError:
+        user = str(uid)
+    try:
+        with open(f"/proc/{pid}/cmdline", "rb") as cmdline:
+            command = cmdline.read().replace(b"\0", b" ").decode(errors="replace").strip()
+    except OSError:
+        command = ""
+    command = command if len(command) <= 80 else command[:77] + "..."
+    return f" (pid {pid}, user {user}" + (f": {command})" if command else ")")

@@ -75,7 +75,7 @@ class Verb:
         parser.add_argument(
             "--socket",
             metavar="PATH",
-            help="control socket (default: api.socket_path of the config)",
+            help="control socket (default: the config's api.socket_path, else this user's socket for the rig)",
         )
         add_config_argument(parser)
         parser.add_argument("--json", action="store_true", help="print the daemon's answer as JSON")
@@ -136,9 +136,10 @@ COMMANDS = [(verb.name, verb.help, verb.add_arguments, verb.run) for verb in VER
 def _socket_path(args: argparse.Namespace) -> str:
     if args.socket:
         return args.socket
+    from daemon.api.paths import control_socket_path
     from daemon.config import load_config
 
-    return load_config(config_path(args)).api.socket_path
+    return str(control_socket_path(load_config(config_path(args))))
 
 
 def _send(verb: str, socket_path: str, command: str, api_args: dict, timeout_s: float) -> dict:

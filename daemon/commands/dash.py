@@ -16,7 +16,8 @@ HELP = "terminal dashboard for a running daemon (live state, plots, interlocks, 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
-        "--socket", metavar="PATH", help="control socket (default: api.socket_path of the config)"
+        "--socket", metavar="PATH",
+        help="control socket (default: the config's api.socket_path, else this user's socket for the rig)",
     )
     add_config_argument(parser)
 
@@ -27,10 +28,11 @@ def drive_unit(drive_kind: str) -> str:
 
 
 def run(args: argparse.Namespace) -> int:
+    from daemon.api.paths import control_socket_path
     from daemon.config import load_config
     from daemon.ui.app import PoiseDash
 
     config = load_config(config_path(args))
-    socket_path = args.socket or config.api.socket_path
+    socket_path = args.socket or str(control_socket_path(config))
     PoiseDash(socket_path, drive_unit=drive_unit(config.drive.kind)).run()
     return 0

@@ -1,8 +1,10 @@
 """`poise demo`: the simulated demo rig, its daemon and the dashboard together in one terminal.
 
 The daemon runs as a child process (`poise run --sim`, real time, recording),
-so the dashboard's drawing never delays the control cycle. The dashboard
-connects once the control socket answers. Quitting the dashboard (which stops
+so the dashboard's drawing never delays the control cycle. It serves its
+control API on a socket in the demo's own private folder, and the dashboard
+connects to that one once it answers: a demo never attaches to another
+daemon, and two users (or two demos) on one machine never meet. Quitting the dashboard (which stops
 any motion first) shuts the daemon down with SIGTERM: a controlled stop, drive
 off, the recording closed. The daemon's log goes to a file, not the terminal.
 
@@ -47,12 +49,13 @@ def run(args: argparse.Namespace) -> int:
 
     path = config_path(args)
     config = load_config(path)
-    log_path = Path(tempfile.mkdtemp(prefix="poise-demo-")) / "daemon.log"
+    folder = Path(tempfile.mkdtemp(prefix="poise-demo-"))  # mode 0700: this user's alone
+    log_path = folder / "daemon.log"
     print(
         f"poise demo: starting the simulated rig {config.rig.id} and its daemon (log: {log_path})"
     )
     with open(log_path, "wb") as log:
-        return asyncio.run(_demo(config, path, log, log_path))
+        return asyncio.run(_demo(config, path, log, log_path, folder / f"{config.rig.id}.sock"))
 
 
 def _headless(config: str | None) -> int:
@@ -64,7 +67,9 @@ def _headless(config: str | None) -> int:
     return session.run(parser.parse_args(["--sim", *(["--config", config] if config else [])]))
 
 
-async def _demo(config, config_path: Path, log: BinaryIO, log_path: Path) -> int:
+async def _demo(
+    config, config_path: Path, log: BinaryIO, log_path: Path, socket_path: Path
+) -> int:
     import asyncio
     import os
     import signal
@@ -74,9 +79,9 @@ async def _demo(config, config_path: Path, log: BinaryIO, log_path: Path) -> int
     from daemon.commands.dash import drive_unit
     from daemon.ui.app import PoiseDash
 
-    socket_path = config.api.socket_path
     daemon = await asyncio.create_subprocess_exec(
-        *(sys.executable, "-m", "daemon.cli", "run", "--sim", "--config", str(config_path)),
+        *(sys.executable, "-m", "daemon.cli", "run", "--sim", "--config", str(config_path),
+          "--socket", str(socket_path)),
         stdin=subprocess.DEVNULL,
         stdout=log,
         stderr=subprocess.STDOUT,
@@ -115,7 +120,7 @@ async def _demo(config, config_path: Path, log: BinaryIO, log_path: Path) -> int
     return 0
 
 
-async def _wait_until_serving(daemon, socket_path: str, log_path: Path) -> None:
+async def _wait_until_serving(daemon, socket_path: Path, log_path: Path) -> None:
     """Return once the daemon's control socket answers; OperatorError if it exits or takes too long."""
     import asyncio
 

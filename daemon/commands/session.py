@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import argparse
 
-from daemon.commands.run import add_port_arguments, load
+from daemon.commands.run import add_port_arguments, load, sim_options
 
 NAME = "session"
 HELP = "run one whole session unattended and print a summary"
@@ -31,10 +31,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     import json
     import logging
+    import sys
+    import tempfile
+    from pathlib import Path
 
     from daemon.errors import OperatorError
     from daemon.runtime import event_loop
-    from daemon.runtime.embedded_sim import SimOptions
     from daemon.runtime.service import PoiseService
     from daemon.runtime.session import BALANCED, parse_disturbance, run_session, summarise_run
 
@@ -43,10 +45,10 @@ def run(args: argparse.Namespace) -> int:
         raise OperatorError(f"--duration must be > 0 seconds (got {args.duration})")
     disturbances = [parse_disturbance(text) for text in args.disturb]
     config, text = load(args)
-    sim = None if args.port else SimOptions(lockstep=True, seed=args.seed)
+    sim = None if args.port else sim_options(args, lockstep=True)
 
-    async def session() -> dict:
-        service = PoiseService(config, text, port_url=args.port, sim=sim)
+    async def session(socket_path: Path) -> dict:
+        service = PoiseService(config, text, port_url=args.port, sim=sim, socket_path=socket_path)
         await service.start()
         service.install_signal_handlers()
         try:
@@ -55,7 +57,12 @@ def run(args: argparse.Namespace) -> int:
             await service.close(outcome="aborted")
         return summarise_run(config.recording.db_path, result)
 
-    summary = event_loop.run(session())
+    # An unattended session serves its control API on a private socket (a dashboard may attach
+    # with `poise dash --socket PATH`), so it never clashes with a daemon already running.
+    with tempfile.TemporaryDirectory(prefix="poise-session-") as folder:
+        socket_path = Path(folder) / f"{config.rig.id}.sock"
+        print(f"poise session: control API on {socket_path}", file=sys.stderr, flush=True)
+        summary = event_loop.run(session(socket_path))
     if args.json:
         print(json.dumps(summary, indent=2))
     else:

@@ -35,7 +35,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="one sample per drive command instead of wall-clock pacing")
     parser.add_argument("--seed", type=int, default=0, help="seed for every random draw (default 0)")
     sensors = parser.add_argument_group("sensor imperfections")
-    sensors.add_argument("--encoder-noise-counts", metavar="SIGMA", default="0",
+    sensors.add_argument("--encoder-noise-counts", metavar="SIGMA", default="0.5",
                          help="Gaussian noise on both encoders, standard deviation in counts")
     sensors.add_argument("--jitter-us", metavar="US", default="0",
                          help="sample-time jitter, standard deviation in microseconds")

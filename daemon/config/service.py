@@ -46,7 +46,11 @@ class ApiSettings(Section):
     ``max_clients`` connections, a new one may still send one e-stop.
     """
 
-    socket_path: str = Field(default="/tmp/poise.sock", min_length=1)
+    socket_path: str | None = Field(
+        default=None,
+        min_length=1,
+        description="unset: <runtime dir>/<rig id>.sock in an owner-only folder (daemon/api/paths.py)",
+    )
     status_rate_hz: float = Field(default=10.0, gt=0.0, le=200.0)
     max_status_rate_hz: float = Field(default=50.0, gt=0.0, le=200.0)
     max_line_bytes: int = Field(default=65536, ge=1024, le=1 << 20)
@@ -63,7 +67,9 @@ class ApiSettings(Section):
 
     @field_validator("socket_path")
     @classmethod
-    def _fits_in_sockaddr(cls, value: str) -> str:
+    def _fits_in_sockaddr(cls, value: str | None) -> str | None:
+        if value is None:
+            return value
         size = len(value.encode())
         if size > UNIX_SOCKET_PATH_MAX_BYTES:
             raise ValueError(

@@ -18,17 +18,25 @@ from sim_device.rig import SimulatedRig
 from sim_device.transports import PtyTransport
 
 
+#: Encoder noise of the built-in rig, counts rms on top of quantisation: a real encoder's edges
+#: jitter with vibration and its counts with electrical noise, and this is what the estimator's
+#: published figures assume (daemon/control/estimation.py). It makes ``--seed`` matter.
+BUILT_IN_NOISE_COUNTS = 0.5
+
+
 @dataclass(frozen=True)
 class SimOptions:
     """How to run the built-in rig: lockstep (deterministic, fast) or real time, and its faults.
 
-    ``supply_v`` fits the rig with a supply voltage measurement reading that voltage.
+    ``supply_v`` fits the rig with a supply voltage measurement reading that voltage;
+    ``encoder_noise_counts`` is the Gaussian noise on both encoders (seeded by ``seed``).
     """
 
     lockstep: bool = False
     seed: int = 0
     faults: FaultPlan = field(default_factory=FaultPlan)
     supply_v: float | None = None
+    encoder_noise_counts: float = BUILT_IN_NOISE_COUNTS
 
 
 def start_embedded_rig(
@@ -36,7 +44,7 @@ def start_embedded_rig(
 ) -> SimulatedRig:
     """Start the simulated rig on a fresh pty in ``loop``; connect to ``rig.where``."""
     rig = SimulatedRig(
-        rig_spec(config, supply_v=options.supply_v),
+        rig_spec(config, encoder_noise_counts=options.encoder_noise_counts, supply_v=options.supply_v),
         PtyTransport(),
         lockstep=options.lockstep,
         seed=options.seed,

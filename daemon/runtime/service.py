@@ -31,7 +31,9 @@ import signal
 import time
 import sys
 from importlib import metadata
+from pathlib import Path
 
+from daemon.api.paths import control_socket_path
 from daemon.api.server import ApiServer
 from daemon.config import PoiseConfig
 from daemon.control.homing import Homing
@@ -85,6 +87,7 @@ class PoiseService:
         port_url: str | None = None,
         sim: SimOptions | None = None,
         serve_api: bool = True,
+        socket_path: str | Path | None = None,
     ):
         if (port_url is None) == (sim is None):
             raise ValueError("give exactly one of port_url and sim")
@@ -93,6 +96,7 @@ class PoiseService:
         self.port_url = port_url
         self.sim_options = sim
         self.serve_api = serve_api
+        self.socket_path = Path(socket_path) if socket_path else control_socket_path(config)
         self.rig: SimulatedRig | None = None
         self.port: Port | None = None
         self.link: Link | None = None
@@ -174,7 +178,7 @@ class PoiseService:
                 f"{FIRST_TELEMETRY_TIMEOUT_S:g} s"
             ) from None
         if self.serve_api:
-            self.api = ApiServer(self, self.config.api)
+            self.api = ApiServer(self, self.config.api, path=self.socket_path)
             try:
                 await self.api.start()
             except OperatorError:

@@ -32,6 +32,7 @@ SWING_UP_TIMEOUT_S = 60.0
 STOP_TIMEOUT_S = 10.0
 WALL_TIMEOUT_FACTOR = 4.0  # a device-time wait gives up after this much more wall time (rig silent)
 BALANCED = "balanced"
+SESSION_START_S = 10.0  # rig time of the first command, if the rig has not been up that long
 
 _LATCHED = {State.FAULT, State.ESTOP, State.DISCONNECTED}
 _COL = {name: index for index, name in enumerate(SAMPLE_COLUMN_NAMES)}
@@ -92,6 +93,11 @@ async def run_session(
     result.run_id = service.start_recording("poise session")
     samples_before = cycle.samples
     try:
+        # Begin at a set time of the rig's clock: a seeded simulated rig (whose noise depends on
+        # the seed and its clock only) then gives the same run every time, however long the
+        # daemon's start took by the wall clock. A rig up for longer starts on its next second.
+        start_s = max(SESSION_START_S, math.floor(cycle.t_s) + 1.0)
+        await _first(cycle.wait_until(start_s), None, start_s - cycle.t_s, "start")
         await _command(service, "home")
         await _wait_state(service, {State.IDLE} | _LATCHED, HOMING_TIMEOUT_S, "homing")
         if not service.supervisor.machine.homed:
@@ -105,7 +111,7 @@ async def run_session(
         if state is not State.BALANCE:
             raise _Stopped("no_catch", f"swing-up ended in {state.name} without a catch")
         t_balance = cycle.t_s
-        result.swing_up_s = t_balance - t_swing
+        result.swing_up_s = _span_s(t_swing, t_balance)
         rig = service.rig
         for disturbance in disturbances:
             rig.schedule_impulse(rig.sim_time_s + disturbance.after_balance_s,
@@ -113,7 +119,7 @@ async def run_session(
         left = cycle.wait_for_state(set(State) - {State.BALANCE})
         end = cycle.wait_until(t_balance + duration_s)
         await _first(left, end, duration_s, "balance")
-        result.balance_s = cycle.t_s - t_balance
+        result.balance_s = _span_s(t_balance, cycle.t_s)
         if left.done():
             state = left.result()
             outcome = "fell" if state in (State.STOPPING, State.SWING_UP) else state.name.lower()
@@ -135,6 +141,11 @@ async def run_session(
         "balance_s": result.balance_s, "samples": result.samples, "trips": result.trips,
     })
     return result
+
+
+def _span_s(start_s: float, end_s: float) -> float:
+    """Rig time from ``start_s`` to ``end_s``, to the microsecond the rig counts in."""
+    return round(end_s - start_s, 6)
 
 
 async def _command(service: PoiseService, command: str) -> None:
