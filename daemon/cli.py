@@ -20,6 +20,7 @@ from types import ModuleType
 import daemon.commands
 from daemon.config import ConfigError
 from daemon.errors import OperatorError
+from daemon.version import software_version
 
 
 def _command_modules() -> list[ModuleType]:
@@ -41,6 +42,7 @@ def build_parser() -> argparse.ArgumentParser:
         description="Supervisor for motorised cart-and-pendulum rigs. "
         "A hardware e-stop that cuts motor power is mandatory; software stops are no substitute.",
     )
+    parser.add_argument("--version", action="version", version=f"poise {software_version()}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
     for module in _command_modules():
         for name, help_text, add_arguments, run in _subcommands(module):

@@ -197,3 +197,12 @@ async def test_a_bad_config_is_reported_with_its_field_path(tmp_path):
         f"poise: {config}: api.socket_path: a Unix socket path may be at most 107"
     )
     assert err.count("\n") == 1
+
+
+def test_status_values_too_small_to_be_physical_print_as_zero():
+    from daemon.commands.ctl import _show
+
+    assert _show(5e-324) == "0"  # the smallest subnormal double (IEEE 754-2008)
+    assert _show(-2.5e-13) == "0"
+    assert _show(0.000123) == "0.000123"
+    assert _show(12.0) == "12"

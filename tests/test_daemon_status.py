@@ -4,9 +4,11 @@ from __future__ import annotations
 
 import json
 
+import pytest
 from test_daemon_support import run_for, running_service, wait_for
 
 from daemon.api.wire import encode_line
+from daemon.errors import CommandRefused
 from daemon.supervisor import State
 
 
@@ -54,3 +56,18 @@ async def test_a_fault_that_latches_again_says_so_and_carries_its_hint(tmp_path)
             service.execute("reset", {}, "api")
             await run_for(service, 0.2)  # the device has cleared its latch
         assert service.status()["faults"] == []
+
+
+async def test_refusals_give_the_operator_the_right_reason(tmp_path):
+    async with running_service(tmp_path) as service:
+        with pytest.raises(CommandRefused, match="nothing to reset: no fault or e-stop is latched"):
+            service.execute("reset", {}, "cli")
+        service.execute("estop", {}, "cli")  # a software e-stop: no button to release
+        with pytest.raises(CommandRefused) as refused:
+            service.execute("home", {}, "cli")
+        assert refused.value.reason == "home: not allowed in ESTOP: e-stop latched (reset first)"
+        service.execute("reset", {}, "cli")
+        service.rig.press_estop()
+        await wait_for(service, State.ESTOP)
+        with pytest.raises(CommandRefused, match=r"latched by the rig's button \(release it, then reset\)"):
+            service.execute("arm", {}, "cli")

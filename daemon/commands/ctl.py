@@ -18,6 +18,7 @@ from daemon.commands import add_config_argument, config_path
 # asyncio, json, rich and the API client are imported inside run() (see daemon/cli.py).
 
 DEFAULT_TIMEOUT_S = 5.0
+TINY = 1e-9
 
 
 def _no_arguments(parser: argparse.ArgumentParser) -> None:
@@ -209,7 +210,9 @@ def _show(value: object) -> str:
     if isinstance(value, bool):
         return "yes" if value else "no"
     if isinstance(value, float):
-        return f"{value:.6g}"
+        # Below a nanometre, nano-volt or nano-radian nothing is physical: show 0, not the
+        # 4.94066e-324 a filter decaying to rest passes through.
+        return "0" if abs(value) < TINY else f"{value:.6g}"
     if isinstance(value, list):
         return ", ".join(_show(item) for item in value) if value else "none"
     if isinstance(value, dict):

@@ -30,7 +30,6 @@ import math
 import signal
 import time
 import sys
-from importlib import metadata
 from pathlib import Path
 
 from daemon.api.paths import control_socket_path
@@ -49,6 +48,7 @@ from daemon.runtime.watchdog import run_watchdog
 from daemon.supervisor import Action, Event, State, Supervisor, Trip, state_code_table
 from daemon.supervisor.machine import LogEntry
 from daemon.supervisor.states import MOTION_STATES
+from daemon.version import software_version
 from protocol import (
     DRIVE_KIND_NEWTONS,
     DRIVE_KIND_VOLTS,
@@ -313,7 +313,7 @@ class PoiseService:
             RunMetadata(
                 rig_id=self.config.rig.id,
                 config_text=self.config_text,
-                software_version=_software_version(),
+                software_version=software_version(),
                 protocol_version=str(PROTOCOL_VERSION),
                 firmware_version=firmware,
                 drive_kind=self.config.drive.kind,
@@ -610,10 +610,3 @@ def config_mismatches(config: PoiseConfig, hello: DeviceHello) -> tuple[str, ...
 
 def _discard_sample(row: tuple) -> bool:
     return False
-
-
-def _software_version() -> str:
-    try:
-        return metadata.version("poise")
-    except metadata.PackageNotFoundError:
-        return "unknown"

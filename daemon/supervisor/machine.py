@@ -91,7 +91,7 @@ _STATE_HINTS = {
     State.STOPPING: "stopping",
     State.EXCITE: "excitation run in progress (stop first)",
     State.FAULT: "fault latched (reset first)",
-    State.ESTOP: "e-stop latched (release the button, then reset)",
+    State.ESTOP: "e-stop latched (reset first)",
 }
 
 
@@ -151,7 +151,7 @@ class StateMachine:
         targets = TRANSITIONS.get((previous, trigger))
         if targets is None:
             raise CommandRefused(
-                f"{trigger.value}: not allowed in {previous.name}: {_STATE_HINTS[previous]}"
+                f"{trigger.value}: not allowed in {previous.name}: {self._why_not(trigger)}"
             )
         checked = self._check_args(trigger, args or {})
         target = self._choose_target(trigger, targets)
@@ -168,6 +168,14 @@ class StateMachine:
         self._record(LogEntry(t_s, kind, source, text))
 
     # ------------------------------------------------------------------ internals
+
+    def _why_not(self, trigger: Trigger) -> str:
+        """Why ``trigger`` does not apply in the present state, in the operator's terms."""
+        if trigger is Command.RESET:
+            return "nothing to reset: no fault or e-stop is latched"
+        if self.state is State.ESTOP and any(f.name == "estop.button" for f in self.faults):
+            return "e-stop latched by the rig's button (release it, then reset)"
+        return _STATE_HINTS[self.state]
 
     def _check_args(self, trigger: Trigger, args: dict) -> dict:
         if trigger is Command.SETPOINT:
