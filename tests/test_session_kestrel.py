@@ -20,7 +20,7 @@ def test_demo_rig_session_balances_with_every_sample_recorded(tmp_path, capsys):
     config = write_rig_config(tmp_path, KESTREL)
     status, summary = run_cli(
         capsys, "session", "--config", str(config), "--sim", "--duration", "8",
-        "--disturb", "3:0.02", "--json",
+        "--disturb", "3:0.02", "--encoder-noise-counts", "0", "--json",
     )
     assert status == 0, summary
     assert summary["outcome"] == "balanced"
@@ -38,12 +38,39 @@ def test_demo_rig_session_balances_with_every_sample_recorded(tmp_path, capsys):
     conn = open_for_reading(summary["recording"])
     try:
         run = get_run(conn, summary["run_id"], summary["recording"])
-        kinds = [kind for _, kind, _, _ in run_events(conn, summary["run_id"])]
+        events = run_events(conn, summary["run_id"])
+        counts = dict(conn.execute(
+            "SELECT t_device_us, pendulum_counts FROM samples WHERE run_id = ?", (summary["run_id"],)
+        ).fetchall())
     finally:
         conn.close()
+    kinds = [kind for _, kind, _, _ in events]
     assert run.outcome == "balanced"
     assert "supervisor.transition" in kinds
     assert run.samples_written == summary["samples"]
+    # The disturbance is recorded at its rig time, the time base of the samples (and of trips),
+    # and it acts right there: the same seeded run without it reads the same pendulum counts up to
+    # that sample, and differs within five samples after it (0.02 N s turns the pendulum by about
+    # two-thirds of a count per sample: the first whole count comes a few samples on).
+    [disturbance] = [json.loads(data) for _, kind, _, data in events if kind == "disturbance.scheduled"]
+    assert disturbance["after_balance_s"] == 3.0 and disturbance["impulse_ns"] == 0.02
+    at_us = round(disturbance["t_s"] * 1e6)
+    (tmp_path / "calm").mkdir()
+    calm_config = write_rig_config(tmp_path / "calm", KESTREL)
+    status, calm = run_cli(
+        capsys, "session", "--config", str(calm_config), "--sim", "--duration", "4",
+        "--encoder-noise-counts", "0", "--json",
+    )
+    assert status == 0, calm
+    conn = open_for_reading(calm["recording"])
+    try:
+        calm_counts = dict(conn.execute(
+            "SELECT t_device_us, pendulum_counts FROM samples WHERE run_id = ?", (calm["run_id"],)
+        ).fetchall())
+    finally:
+        conn.close()
+    differ = sorted(t for t in counts.keys() & calm_counts.keys() if counts[t] != calm_counts[t])
+    assert at_us <= differ[0] <= at_us + 10_000
 
 
 def test_session_json_is_strict_json_with_the_documented_fields(tmp_path, capsys):

@@ -22,8 +22,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     )
     parser.add_argument(
         "--disturb", action="append", default=[], metavar="T:IMPULSE",
-        help="simulated rig: an impulse of IMPULSE N*s at the pendulum's centre of mass, "
-        "T s after balance begins (repeatable)",
+        help="a disturbance T s after balance begins, of IMPULSE N*s at the pendulum's centre of "
+        "mass (repeatable): applied by the simulated rig, or asked of the operator on a real one",
     )
     parser.add_argument("--json", action="store_true", help="print the summary as JSON")
 

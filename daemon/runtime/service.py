@@ -328,6 +328,11 @@ class PoiseService:
             self.recorder.end_run(outcome, summary)
         self.run_id = None
 
+    def record_event(self, kind: str, source: str, data: dict) -> None:
+        """Store an event with the open run (and with none if nothing is recording)."""
+        if self.recorder is not None:
+            self.recorder.put_event(kind, source, data)
+
     def _recording_failed_threadsafe(self, reason: str) -> None:
         if self._loop is not None and not self._loop.is_closed():
             self._loop.call_soon_threadsafe(self._recording_failed, reason)

@@ -5,7 +5,10 @@ operator commands a person would send (source ``"session"``), waiting on the
 rig's own clock (device time), so a lockstep simulated rig runs it in seconds
 and a real rig in real time. Disturbances (``T:IMPULSE``) are horizontal
 impulses in N s at the pendulum's centre of mass, T seconds after balance
-begins, applied through the simulated rig's API.
+begins: applied through the simulated rig's API, or, on a real rig, asked of
+the operator at that moment. Each is recorded as an event at its rig time, the
+time base of trips and samples, with its time after balance began; trips carry
+both too.
 
 :func:`summarise_run` reads the recorded run back from the run store and adds
 the figures computed from every recorded sample (balance RMS, latency
@@ -16,6 +19,7 @@ from __future__ import annotations
 
 import asyncio
 import math
+import sys
 from dataclasses import dataclass, field
 
 from daemon.errors import CommandRefused, OperatorError
@@ -85,13 +89,13 @@ async def run_session(
     service: PoiseService, duration_s: float, disturbances: list[Disturbance]
 ) -> SessionResult:
     """Run one session on a started service; the run is recorded and ended here."""
-    if disturbances and service.rig is None:
-        raise OperatorError("--disturb needs the simulated rig (--sim)")
     cycle = service.cycle
     trips_before = len(service.trips)
     result = SessionResult(outcome=BALANCED)
+    prompts: list[asyncio.Task] = []
     result.run_id = service.start_recording("poise session")
     samples_before = cycle.samples
+    t_balance: float | None = None
     try:
         # Begin at a set time of the rig's clock: a seeded simulated rig (whose noise depends on
         # the seed and its clock only) then gives the same run every time, however long the
@@ -112,10 +116,7 @@ async def run_session(
             raise _Stopped("no_catch", f"swing-up ended in {state.name} without a catch")
         t_balance = cycle.t_s
         result.swing_up_s = _span_s(t_swing, t_balance)
-        rig = service.rig
-        for disturbance in disturbances:
-            rig.schedule_impulse(rig.sim_time_s + disturbance.after_balance_s,
-                                 pendulum_ns=disturbance.impulse_ns)
+        prompts = [_disturb(service, t_balance, d) for d in disturbances]
         left = cycle.wait_for_state(set(State) - {State.BALANCE})
         end = cycle.wait_until(t_balance + duration_s)
         await _first(left, end, duration_s, "balance")
@@ -130,9 +131,15 @@ async def run_session(
         result.outcome = stopped.outcome
         result.detail = stopped.detail
         await service.stop_motion("session")
+    finally:
+        for prompt in prompts:
+            prompt.cancel()
     if service.supervisor.machine.state is State.READY:
         await _command(service, "disarm")
-    result.trips = [{"reason": name, "t_s": t_s} for name, t_s, _seq in service.trips[trips_before:]]
+    result.trips = [
+        {"reason": name, "t_s": t_s, "after_balance_s": _after(t_balance, t_s)}
+        for name, t_s, _seq in service.trips[trips_before:]
+    ]
     if result.trips and result.outcome == BALANCED:
         result.outcome = "tripped"
     result.samples = cycle.samples - samples_before
@@ -141,6 +148,38 @@ async def run_session(
         "balance_s": result.balance_s, "samples": result.samples, "trips": result.trips,
     })
     return result
+
+
+def _disturb(service: PoiseService, t_balance: float, disturbance: Disturbance) -> asyncio.Task:
+    """Schedule one disturbance: an impulse on the simulated rig, or a prompt to the operator.
+
+    Either way it is recorded as an event at its rig time (the time base of trips and samples),
+    with its time after balance began.
+    """
+    at_s = t_balance + disturbance.after_balance_s
+    data = {"t_s": at_s, "after_balance_s": disturbance.after_balance_s,
+            "impulse_ns": disturbance.impulse_ns}
+    rig = service.rig
+    if rig is not None:
+        rig.schedule_impulse(rig.sim_time_s + disturbance.after_balance_s,
+                             pendulum_ns=disturbance.impulse_ns)
+        service.record_event("disturbance.scheduled", "session", data)
+
+    async def prompt() -> None:
+        await service.cycle.wait_until(at_s)
+        if rig is None:
+            print(
+                f"poise session: disturb now: a tap on the pendulum of about "
+                f"{disturbance.impulse_ns:g} N s (rig time {at_s:.3f} s)",
+                file=sys.stderr, flush=True,
+            )
+            service.record_event("disturbance.requested", "session", data)
+
+    return asyncio.create_task(prompt(), name="poise-disturbance")
+
+
+def _after(t_balance: float | None, t_s: float) -> float | None:
+    return None if t_balance is None else _span_s(t_balance, t_s)
 
 
 def _span_s(start_s: float, end_s: float) -> float:
