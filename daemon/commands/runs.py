@@ -34,7 +34,7 @@ def store_path(args: argparse.Namespace) -> Path:
     if args.db:
         return Path(args.db)
     source = config_path(args)
-    path = Path(load_config(source).recording.db_path).expanduser()
+    path = Path(load_config(source).recording.db_path)
     if not path.is_file():
         raise OperatorError(
             f"run store {path}: no such file (recording.db_path in {source}); "
