@@ -7,11 +7,13 @@ back from the SQLite run store itself.
 
 from __future__ import annotations
 
+import numpy as np
 import pytest
-from test_daemon_support import run_for, running_service
+from test_daemon_support import homed_and_ready, recorded_samples, run_for, running_service
 
 from daemon.api.client import ApiClient, ApiError
 from daemon.recording.store import get_run, list_runs, open_for_reading
+from daemon.supervisor import State
 
 
 def runs(service) -> list:
@@ -90,3 +92,21 @@ async def test_bad_record_arguments_are_refused_naming_the_argument_and_change_n
                 await client.request("record", args)
             assert (await client.request("status"))["recording"]["active"] is False
         assert runs(service) == []
+
+
+async def test_each_sample_records_the_set_point_in_force_and_the_drive_the_rig_applied(tmp_path):
+    async with running_service(tmp_path) as service:
+        service.start_recording("set-point step")
+        await homed_and_ready(service)
+        service.execute("setpoint", {"x_m": 0.1}, "api")
+        await run_for(service, 0.3)
+        rows = recorded_samples(service)
+    ready = [row for row in rows if row["mode"] == State.READY]
+    assert {row["setpoint_m"] for row in ready} == {0.0, 0.1}
+    assert ready[-1]["setpoint_m"] == 0.1
+    # protocol/PROTOCOL.md: a Drive answering sample k is in effect from sample k + 1, and the
+    # Telemetry's drive_applied reports it (sent on the wire as float32).
+    pairs = [(a, b) for a, b in zip(ready, ready[1:]) if b["seq"] == (a["seq"] + 1) & 0xFFFF]
+    assert len(pairs) > 100
+    for before, after in pairs:
+        assert after["drive_applied"] == float(np.float32(before["drive_sent"]))

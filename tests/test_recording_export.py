@@ -15,7 +15,7 @@ import pandas as pd
 import pyarrow.parquet as pq
 import pytest
 from scipy.io import loadmat
-from test_recording_store import metadata, sample_row
+from test_recording_store import MODES, metadata, sample_row
 
 from daemon.cli import main
 from daemon.recording import SAMPLE_COLUMN_NAMES, Recorder
@@ -24,7 +24,7 @@ from daemon.recording.export import export_column_names
 UNITS_NAMES = [
     "seq", "t_device_us", "t_host_ns", "cart_counts", "pendulum_counts", "switches", "faults",
     "x_m", "v_mps", "theta_rad", "omega_radps", "drive_requested_v", "drive_sent_v", "mode",
-    "latency_us",
+    "latency_us", "setpoint_m", "drive_applied_v",
 ]  # fmt: skip
 RUN_SAMPLES = 3000
 
@@ -37,7 +37,7 @@ def store(tmp_path_factory):
         recorder.start_run(metadata(notes="export check"))
         for i in range(RUN_SAMPLES):
             row = sample_row(i)
-            recorder.put_sample(row[:-1] + (None,) if i == 7 else row)
+            recorder.put_sample(row[:14] + (None,) + row[15:] if i == 7 else row)
             if i == 1500:
                 recorder.put_event("mode", "supervisor", {"from": "HOMING", "to": "SWING_UP"})
         recorder.put_event("operator", "api", {"command": "stop", "client": "cli"})
@@ -61,7 +61,7 @@ def stored(db) -> dict[str, np.ndarray]:
 def test_column_names_carry_units_and_the_drive_unit_of_the_rig():
     assert export_column_names("voltage") == UNITS_NAMES
     force = export_column_names("force")
-    assert force[11:13] == ["drive_requested_n", "drive_sent_n"]
+    assert [force[11], force[12], force[-1]] == ["drive_requested_n", "drive_sent_n", "drive_applied_n"]
 
 
 def test_runs_json_lists_every_run(store, capsys):
@@ -88,12 +88,13 @@ def test_csv_read_back_with_pandas_equals_the_store(store, tmp_path, capsys):
     assert main(["export", "1", "--db", str(store), "--format", "csv", "--out", str(out)]) == 0
     assert "csv holds samples only" in capsys.readouterr().err
     frame = pd.read_csv(out)
-    assert list(frame.columns) == UNITS_NAMES
+    assert list(frame.columns) == [*UNITS_NAMES, "mode_name"]
     expected = stored(store)
     assert np.isnan(expected["latency_us"][7])
     for name in UNITS_NAMES:
         np.testing.assert_array_equal(frame[name].to_numpy(dtype=np.float64), expected[name])
     assert frame["t_host_ns"].dtype == np.int64
+    assert list(frame["mode_name"]) == [MODES[code] for code in expected["mode"].astype(int)]
 
 
 def test_mat_read_back_with_scipy_equals_the_store(store, tmp_path):
@@ -108,6 +109,8 @@ def test_mat_read_back_with_scipy_equals_the_store(store, tmp_path):
     assert list(mat["events"]["kind"]) == ["mode", "operator"]
     assert json.loads(mat["events"]["data_json"][1]) == {"command": "stop", "client": "cli"}
     assert mat["run"]["rig_id"] == "kestrel-1" and mat["run"]["operator_notes"] == "export check"
+    modes = dict(zip(np.atleast_1d(mat["modes"]["code"]).tolist(), mat["modes"]["name"], strict=True))
+    assert modes == MODES
 
 
 def test_npz_holds_samples_events_and_the_run_record(store, tmp_path):
@@ -127,7 +130,7 @@ def test_parquet_round_trip_with_pyarrow(store, tmp_path):
     out = tmp_path / "run1.parquet"
     assert main(["export", "1", "--db", str(store), "--format", "parquet", "--out", str(out)]) == 0
     table = pq.read_table(out)
-    assert table.column_names == UNITS_NAMES
+    assert table.column_names == [*UNITS_NAMES, "mode_name"]
     expected = stored(store)
     for name in UNITS_NAMES:
         values = table.column(name).to_numpy(zero_copy_only=False)
@@ -135,6 +138,9 @@ def test_parquet_round_trip_with_pyarrow(store, tmp_path):
     assert table.column("latency_us").null_count == 1  # SQL NULL stays a null
     events = json.loads(table.schema.metadata[b"poise.events"])
     assert [event["kind"] for event in events] == ["mode", "operator"]
+    modes = pd.read_parquet(out, columns=["mode_name"])["mode_name"]
+    assert isinstance(modes.dtype, pd.CategoricalDtype)  # a dictionary column
+    assert list(modes) == [MODES[code] for code in expected["mode"].astype(int)]
 
 
 def test_parquet_without_pyarrow_is_a_one_line_message(store, tmp_path, monkeypatch, capsys):

@@ -29,7 +29,7 @@ from daemon.recording import (
     RecordingError,
     RunMetadata,
 )
-from daemon.recording.schema import APPLICATION_ID
+from daemon.recording.schema import APPLICATION_ID, MIGRATIONS
 from daemon.recording.store import get_run, list_runs, open_for_reading, run_events, sample_chunks
 
 REPO = Path(__file__).resolve().parents[1]
@@ -58,6 +58,8 @@ def sample_values(i):
         11.5 - i * 2.3e-5,
         (i // 1000) % 4,
         20.0 + (i % 100) * 0.125,
+        ((i // 500) % 3 - 1) * 0.05,
+        11.25 - i * 2.25e-5,
     )
 
 
@@ -104,6 +106,35 @@ def test_new_store_is_created_in_wal_mode_at_the_current_schema_version(tmp_path
     assert conn.execute("PRAGMA application_id").fetchone()[0] == APPLICATION_ID
     columns = [row[1] for row in conn.execute("PRAGMA table_info(samples)")]
     assert columns == ["sample_id", "run_id", *SAMPLE_COLUMN_NAMES]
+
+
+def test_a_version_1_store_is_migrated_and_keeps_its_runs(tmp_path):
+    db = tmp_path / "runs.db"
+    conn = sqlite3.connect(db, isolation_level=None)
+    conn.executescript(MIGRATIONS[0].sql)  # version 1 exactly as it was released
+    conn.execute(f"PRAGMA application_id = {APPLICATION_ID}")
+    conn.execute("PRAGMA user_version = 1")
+    conn.execute(
+        "INSERT INTO runs (run_id, rig_id, started_unix_ns, started_host_ns, outcome, config_text, "
+        "config_format, software_version, protocol_version, firmware_version, operator_notes, "
+        "drive_kind, mode_names_json, first_sample_id, last_sample_id, samples_written) "
+        "VALUES (1, 'kestrel-1', 0, 0, 'completed', '', 'toml', '0.1.0', '1', '1.4.2', '', "
+        "'voltage', '[[0, \"IDLE\"]]', 1, 2, 2)"
+    )
+    old_rows = [sample_row(i)[:15] for i in range(2)]  # the 15 columns of version 1
+    conn.executemany(f"INSERT INTO samples VALUES (NULL, 1, {', '.join('?' * 15)})", old_rows)
+    conn.close()
+    with Recorder(db) as recorder:
+        second = recorder.start_run(metadata())
+        recorder.put_sample(sample_row(2))
+        recorder.end_run("completed")
+    conn = sqlite3.connect(db)
+    assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION == 2
+    columns = [row[1] for row in conn.execute("PRAGMA table_info(samples)")]
+    assert columns[-2:] == ["setpoint_m", "drive_applied"]
+    conn.close()
+    assert stored_rows(db, 1) == [row + (None, None) for row in old_rows]
+    assert stored_rows(db, second) == [sample_row(2)]
 
 
 def test_store_from_a_newer_poise_is_refused_with_one_line(tmp_path):

@@ -18,7 +18,7 @@ store's writer lock, marks runs left open by a dead process as ``aborted``
     ``row`` is a plain tuple in ``schema.SAMPLE_COLUMN_NAMES`` order: seq,
     t_device_us, t_host_ns, cart_counts, pendulum_counts, switches, faults,
     x_m, v_mps, theta_rad, omega_radps, drive_requested, drive_sent, mode,
-    latency_us. ``t_host_ns`` must come from ``host_clock_ns`` (default
+    latency_us, setpoint_m, drive_applied. ``t_host_ns`` must come from ``host_clock_ns`` (default
     ``time.monotonic_ns``). Appends to the queue and returns True; if the queue
     holds ``queue_capacity`` items the row is counted as dropped and False is
     returned. Meant for one producer thread (the control cycle).
