@@ -20,7 +20,7 @@ def runs(service) -> list:
     service.recorder.flush()
     conn = open_for_reading(service.recorder.db_path)
     try:
-        return list_runs(conn)
+        return list_runs(conn, service.recorder.db_path)
     finally:
         conn.close()
 

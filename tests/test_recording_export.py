@@ -61,7 +61,8 @@ def stored(db) -> dict[str, np.ndarray]:
 def test_column_names_carry_units_and_the_drive_unit_of_the_rig():
     assert export_column_names("voltage") == UNITS_NAMES
     force = export_column_names("force")
-    assert [force[11], force[12], force[-1]] == ["drive_requested_n", "drive_sent_n", "drive_applied_n"]
+    drive_columns = [force[11], force[12], force[-1]]
+    assert drive_columns == ["drive_requested_n", "drive_sent_n", "drive_applied_n"]
 
 
 def test_runs_json_lists_every_run(store, capsys):
@@ -72,15 +73,19 @@ def test_runs_json_lists_every_run(store, capsys):
         (2, "stopped", 0, 0),
     ]
     assert runs[0]["rig_id"] == "kestrel-1" and runs[0]["mode_reached"] == "SWING_UP"
-    assert runs[1]["mode_reached"] is None
+    assert runs[0]["last_mode"] == "SWING_UP"
+    assert runs[0]["duration_s"] == (RUN_SAMPLES - 1) * 0.002  # device time, samples 2 ms apart
+    assert runs[0]["wall_time_s"] == (runs[0]["ended_unix_ns"] - runs[0]["started_unix_ns"]) / 1e9
+    assert runs[1]["mode_reached"] is None and runs[1]["duration_s"] is None
 
 
 def test_runs_table_names_the_columns(store, capsys):
     assert main(["runs", "--db", str(store)]) == 0
     out = capsys.readouterr().out
-    for heading in ("id", "rig", "start", "duration", "outcome", "samples", "drops"):
-        assert heading in out
-    assert "kestrel-1" in out and "3,000" in out
+    assert out.startswith(f"runs of kestrel-1 in {store}")  # one rig: named once
+    headings = ("id", "start", "duration", "reached", "ended in", "outcome", "samples", "drops")
+    assert all(heading in out for heading in headings)
+    assert "SWING_UP" in out and "3,000" in out and "6.0 s" in out  # 3000 samples 2 ms apart
 
 
 def test_csv_read_back_with_pandas_equals_the_store(store, tmp_path, capsys):
@@ -109,8 +114,8 @@ def test_mat_read_back_with_scipy_equals_the_store(store, tmp_path):
     assert list(mat["events"]["kind"]) == ["mode", "operator"]
     assert json.loads(mat["events"]["data_json"][1]) == {"command": "stop", "client": "cli"}
     assert mat["run"]["rig_id"] == "kestrel-1" and mat["run"]["operator_notes"] == "export check"
-    modes = dict(zip(np.atleast_1d(mat["modes"]["code"]).tolist(), mat["modes"]["name"], strict=True))
-    assert modes == MODES
+    codes = np.atleast_1d(mat["modes"]["code"]).tolist()
+    assert dict(zip(codes, mat["modes"]["name"], strict=True)) == MODES
 
 
 def test_npz_holds_samples_events_and_the_run_record(store, tmp_path):

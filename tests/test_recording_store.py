@@ -9,6 +9,7 @@ file is undamaged (sqlite.org/pragma.html#pragma_integrity_check).
 
 from __future__ import annotations
 
+import json
 import math
 import os
 import signal
@@ -16,11 +17,13 @@ import sqlite3
 import subprocess
 import sys
 import textwrap
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
 import pytest
 
+from daemon.cli import main
 from daemon.recording import (
     ABORTED,
     SAMPLE_COLUMN_NAMES,
@@ -29,8 +32,10 @@ from daemon.recording import (
     RecordingError,
     RunMetadata,
 )
-from daemon.recording.schema import APPLICATION_ID, MIGRATIONS
+from daemon.recording.modes import MODE_PROGRESSION
+from daemon.recording.schema import APPLICATION_ID, MIGRATIONS, MODE_INDEX
 from daemon.recording.store import get_run, list_runs, open_for_reading, run_events, sample_chunks
+from daemon.supervisor import State, state_code_table
 
 REPO = Path(__file__).resolve().parents[1]
 MODES = {0: "IDLE", 1: "HOMING", 2: "SWING_UP", 3: "BALANCE", 9: "FAULT"}
@@ -213,6 +218,53 @@ def test_run_record_holds_metadata_counts_and_mode_reached(tmp_path):
     assert stored_rows(db, run_id) == [sample_row(i) for i in range(2500)]
 
 
+def modes_run(db: Path, codes: list[State]) -> int:
+    """A run with the supervisor's mode table whose samples go through ``codes``, one each."""
+    with Recorder(db) as recorder:
+        run_id = recorder.start_run(replace(metadata(), mode_names=state_code_table()))
+        for i, code in enumerate(codes):
+            row = sample_row(i)
+            recorder.put_sample(row[:MODE_INDEX] + (int(code),) + row[MODE_INDEX + 1 :])
+        recorder.end_run("completed")
+    return run_id
+
+
+def test_mode_progression_names_supervisor_states():
+    assert set(MODE_PROGRESSION) <= {state.name for state in State}
+    assert MODE_PROGRESSION[-1] == State.BALANCE.name
+
+
+def test_mode_reached_is_the_most_advanced_mode_and_the_run_ends_in_its_last(tmp_path):
+    db = tmp_path / "runs.db"
+    path = [State.IDLE, State.HOMING, State.IDLE, State.READY, State.SWING_UP, State.BALANCE,
+            State.STOPPING, State.ESTOP]  # fmt: skip
+    balanced = modes_run(db, path)
+    excited = modes_run(db, [State.IDLE, State.READY, State.EXCITE, State.FAULT])
+    faulted = modes_run(db, [State.DISCONNECTED, State.FAULT])
+    conn = open_for_reading(db)
+    runs = {run.run_id: run for run in list_runs(conn, db)}
+    assert (runs[balanced].mode_reached, runs[balanced].last_mode) == ("BALANCE", "ESTOP")
+    assert (runs[excited].mode_reached, runs[excited].last_mode) == ("EXCITE", "FAULT")
+    assert (runs[faulted].mode_reached, runs[faulted].last_mode) == (None, "FAULT")
+
+
+def test_a_run_s_duration_is_its_device_sample_time(tmp_path):
+    db = tmp_path / "runs.db"
+    with Recorder(db) as recorder:
+        run_id = recorder.start_run(metadata())
+        for i in range(1, 1001):
+            recorder.put_sample(sample_row(i))  # t_device_us = 2000 i: 2 ms apart
+        recorder.end_run("completed")
+        empty = recorder.start_run(metadata())
+        recorder.end_run("completed")
+    conn = open_for_reading(db)
+    run = get_run(conn, run_id, db)
+    assert (run.first_t_device_us, run.last_t_device_us) == (2000, 2_000_000)
+    assert run.sample_time_s == 999 * 0.002
+    assert run.wall_time_s == (run.ended_unix_ns - run.started_unix_ns) / 1e9
+    assert get_run(conn, empty, db).sample_time_s is None
+
+
 def test_samples_and_events_land_in_the_run_open_when_they_were_put(tmp_path):
     db = tmp_path / "runs.db"
     with Recorder(db) as recorder:
@@ -342,7 +394,9 @@ WRITER_SCRIPT = textwrap.dedent(
 )
 
 
-def test_kill_9_mid_stream_keeps_every_committed_sample_and_the_run_is_marked_aborted(tmp_path):
+def test_kill_9_mid_stream_keeps_every_committed_sample_and_the_run_is_marked_aborted(
+    tmp_path, capsys
+):
     db = tmp_path / "runs.db"
     child = subprocess.Popen(
         [sys.executable, "-c", WRITER_SCRIPT, str(db), str(Path(__file__).parent)],
@@ -366,16 +420,27 @@ def test_kill_9_mid_stream_keeps_every_committed_sample_and_the_run_is_marked_ab
     rows = stored_rows(db, 1)
     assert len(rows) >= committed
     assert rows == [sample_row(i) for i in range(len(rows))]
+    last_sample_offset_ns = rows[-1][2] - sample_row(0)[2]
+    # Read before any writer runs again: the dead writer's lock is gone, so the run reads as aborted
+    # at its last committed sample, though the file still holds it open.
     conn = open_for_reading(db)
-    (open_run,) = list_runs(conn)
-    assert open_run.outcome is None and open_run.samples_written == len(rows)
+    (crashed,) = list_runs(conn, db)
+    assert (crashed.outcome, crashed.writer_died) == (ABORTED, True)
+    assert crashed == get_run(conn, 1, db)
+    assert crashed.samples_written == len(rows)
+    assert crashed.ended_unix_ns - crashed.started_unix_ns == last_sample_offset_ns
+    assert crashed.last_t_device_us == rows[-1][1]
+    assert crashed.sample_time_s == (rows[-1][1] - rows[0][1]) / 1e6
+    assert conn.execute("SELECT outcome FROM runs").fetchall() == [(None,)]  # read, not written
     conn.close()
+    assert main(["runs", "--db", str(db), "--json"]) == 0
+    (listed,) = json.loads(capsys.readouterr().out)
+    assert (listed["outcome"], listed["samples"]) == (ABORTED, len(rows))
 
     with Recorder(db) as recorder:
         assert recorder.recovered_runs == [1]
     conn = open_for_reading(db)
     run = get_run(conn, 1, db)
-    assert run.outcome == ABORTED
-    last_sample_offset_ns = rows[-1][2] - sample_row(0)[2]
-    assert run.ended_unix_ns - run.started_unix_ns == last_sample_offset_ns
+    assert (run.outcome, run.writer_died) == (ABORTED, False)
+    assert run.ended_unix_ns == crashed.ended_unix_ns
     assert [event[1] for event in run_events(conn, 1)] == ["run.aborted"]

@@ -17,10 +17,26 @@ One writer per file: the writer holds an exclusive ``flock`` on ``<db>.lock``
 for its lifetime (the kernel drops it when the process dies, however it dies).
 Holding it is what makes it safe to mark runs still open at start-up as
 aborted: no other live process can be recording them.
+
+Telling a crashed run from one being written, when reading: a run whose
+``outcome`` is still NULL is either being recorded now or was left open by a
+writer that died (``kill -9``, a crash, a power cut). Readers (:func:`list_runs`,
+:func:`get_run`) try to take the same lock *shared* while they read the run
+rows. If they cannot, a live writer holds it and the open run is its run
+(it cleaned up any older open run when it started): it is shown as being
+recorded, outcome None. If they can, no writer is alive, and none can start
+while they hold it (a starting writer waits up to ``LOCK_WAIT_S`` for readers),
+so an open run is one whose writer died: it is shown as ``aborted``, ending at
+its last committed sample, exactly as the next writer will mark it in the file
+(``RunRecord.writer_died`` says it is not marked yet). The lock is a kernel
+lock on a local file; a store on a network file system shared between machines
+is not supported.
 """
 
 from __future__ import annotations
 
+import contextlib
+import dataclasses
 import fcntl
 import json
 import os
@@ -32,6 +48,7 @@ from pathlib import Path
 from urllib.parse import quote
 
 from daemon.recording.errors import RecordingError
+from daemon.recording.modes import most_advanced
 from daemon.recording.schema import SAMPLE_COLUMN_NAMES, SCHEMA_VERSION, check_version, migrate
 
 ABORTED = "aborted"  # outcome of a run whose writer ended without closing it
@@ -79,19 +96,30 @@ class WriterLock:
             self._fd = -1
 
 
-def writer_active(db_path: str | Path) -> bool:
-    """True if some process holds the writer lock of this store (is recording into it now)."""
+@contextlib.contextmanager
+def _writer_alive(db_path: str | Path) -> Iterator[bool]:
+    """Whether a live process holds the store's writer lock; if none does, keep one from
+    starting (the lock held shared) until the block ends. See the module docstring."""
     try:
         fd = os.open(lock_path(db_path), os.O_RDONLY)
     except FileNotFoundError:
-        return False
+        yield False  # no writer has ever run here
+        return
     try:
-        fcntl.flock(fd, fcntl.LOCK_SH | fcntl.LOCK_NB)
-    except BlockingIOError:
-        return True
+        try:
+            fcntl.flock(fd, fcntl.LOCK_SH | fcntl.LOCK_NB)
+        except BlockingIOError:
+            yield True
+            return
+        yield False
     finally:
-        os.close(fd)
-    return False
+        os.close(fd)  # closing drops the shared lock
+
+
+def writer_active(db_path: str | Path) -> bool:
+    """True if some process holds the writer lock of this store (is recording into it now)."""
+    with _writer_alive(db_path) as alive:
+        return alive
 
 
 def open_for_writing(db_path: str | Path, max_db_bytes: int | None = None) -> sqlite3.Connection:
@@ -145,7 +173,7 @@ def recover_unfinished_runs(conn: sqlite3.Connection) -> list[int]:
         "FROM runs WHERE outcome IS NULL ORDER BY run_id"
     ).fetchall()
     for run_id, started_unix_ns, started_host_ns, last_host_ns, samples_written in open_runs:
-        elapsed_ns = 0 if last_host_ns is None else max(0, last_host_ns - started_host_ns)
+        elapsed_ns = _elapsed_to_last_sample_ns(started_host_ns, last_host_ns)
         data = {
             "reason": "the recording process ended without ending the run",
             "samples_committed": samples_written,
@@ -164,9 +192,16 @@ def recover_unfinished_runs(conn: sqlite3.Connection) -> list[int]:
     return [row[0] for row in open_runs]
 
 
+def _elapsed_to_last_sample_ns(started_host_ns: int, last_sample_host_ns: int | None) -> int:
+    """Host time from the start of a run to its last committed sample (0 if it has none)."""
+    return 0 if last_sample_host_ns is None else max(0, last_sample_host_ns - started_host_ns)
+
+
 @dataclass(frozen=True, slots=True)
 class RunRecord:
-    """One row of ``runs`` as stored, plus what a listing derives from it."""
+    """One row of ``runs`` as stored, its first and last samples' times and mode, and what a
+    listing derives from them. A run left open by a writer that died is shown as aborted
+    (``writer_died``; see the module docstring)."""
 
     run_id: int
     rig_id: str
@@ -191,55 +226,91 @@ class RunRecord:
     samples_dropped: int
     events_written: int
     events_dropped: int
+    first_t_device_us: int | None
+    """Device time of the first committed sample (None without samples)."""
+    last_t_device_us: int | None
+    """Device time of the last committed sample."""
+    last_mode_code: int | None
+    """Supervisor mode of the last committed sample."""
+    writer_died: bool = False
+    """Still open in the file, but no process is writing it: shown as aborted, not yet marked."""
 
     @property
     def mode_reached(self) -> str | None:
-        """The seen mode that comes last in the run's mode table (listed in order of progression)."""
-        order = list(self.mode_names)
-        known = [code for code in self.modes_seen if code in self.mode_names]
-        if known:
-            return self.mode_names[max(known, key=order.index)]
-        if self.modes_seen:
-            return f"mode {max(self.modes_seen)}"
-        return None
+        """The most advanced mode of the run's samples (daemon.recording.modes), or None."""
+        names = self.mode_names
+        return most_advanced(names[code] for code in self.modes_seen if code in names)
 
     @property
-    def duration_s(self) -> float | None:
-        """Start to end; for an open run, start to its last committed sample."""
+    def last_mode(self) -> str | None:
+        """The mode the run ended in (its last committed sample's), by name."""
+        if self.last_mode_code is None:
+            return None
+        return self.mode_names.get(self.last_mode_code, f"mode {self.last_mode_code}")
+
+    @property
+    def sample_time_s(self) -> float | None:
+        """Device time from the first committed sample to the last (None without samples)."""
+        if self.first_t_device_us is None or self.last_t_device_us is None:
+            return None
+        return (self.last_t_device_us - self.first_t_device_us) / 1e6
+
+    @property
+    def wall_time_s(self) -> float:
+        """Start to end on the host's clock; for a run being recorded, start to its last sample."""
         if self.ended_unix_ns is not None:
             return (self.ended_unix_ns - self.started_unix_ns) / 1e9
-        if self.last_sample_host_ns is not None:
-            return max(0, self.last_sample_host_ns - self.started_host_ns) / 1e9
-        return None
+        return _elapsed_to_last_sample_ns(self.started_host_ns, self.last_sample_host_ns) / 1e9
 
 
 _RUN_FIELDS = (
-    "run_id, rig_id, started_unix_ns, started_host_ns, ended_unix_ns, outcome, summary_json, "
-    "config_text, config_format, software_version, protocol_version, firmware_version, "
-    "operator_notes, drive_kind, mode_names_json, modes_seen_json, first_sample_id, "
-    "last_sample_id, last_sample_host_ns, samples_written, samples_dropped, events_written, "
-    "events_dropped"
+    "run_id", "rig_id", "started_unix_ns", "started_host_ns", "ended_unix_ns", "outcome",
+    "summary_json", "config_text", "config_format", "software_version", "protocol_version",
+    "firmware_version", "operator_notes", "drive_kind", "mode_names_json", "modes_seen_json",
+    "first_sample_id", "last_sample_id", "last_sample_host_ns", "samples_written",
+    "samples_dropped", "events_written", "events_dropped",
+)  # fmt: skip
+# The first and last samples are found by primary key, so this costs two lookups per run.
+_SELECT_RUNS = (
+    f"SELECT {', '.join(f'r.{name}' for name in _RUN_FIELDS)}, "
+    "first_sample.t_device_us, last_sample.t_device_us, last_sample.mode FROM runs AS r "
+    "LEFT JOIN samples AS first_sample ON first_sample.sample_id = r.first_sample_id "
+    "LEFT JOIN samples AS last_sample ON last_sample.sample_id = r.last_sample_id"
 )
 
 
-def _run_record(row: tuple) -> RunRecord:
+def _run_record(row: tuple, writer_alive: bool) -> RunRecord:
     values = list(row)
     values[6] = None if row[6] is None else json.loads(row[6])
     values[14] = {int(code): name for code, name in json.loads(row[14])}
     values[15] = json.loads(row[15])
-    return RunRecord(*values)
+    run = RunRecord(*values)
+    if run.outcome is None and not writer_alive:
+        return _as_aborted(run)
+    return run
 
 
-def list_runs(conn: sqlite3.Connection) -> list[RunRecord]:
-    rows = conn.execute(f"SELECT {_RUN_FIELDS} FROM runs ORDER BY run_id").fetchall()
-    return [_run_record(row) for row in rows]
+def _as_aborted(run: RunRecord) -> RunRecord:
+    """An open run whose writer died, as the next writer will mark it (recover_unfinished_runs)."""
+    elapsed_ns = _elapsed_to_last_sample_ns(run.started_host_ns, run.last_sample_host_ns)
+    return dataclasses.replace(
+        run, outcome=ABORTED, ended_unix_ns=run.started_unix_ns + elapsed_ns, writer_died=True
+    )
+
+
+def list_runs(conn: sqlite3.Connection, db_path: str | Path) -> list[RunRecord]:
+    """Every run in the store at ``db_path`` (``conn`` opened on it), in order of run id."""
+    with _writer_alive(db_path) as writer_alive:
+        rows = conn.execute(f"{_SELECT_RUNS} ORDER BY r.run_id").fetchall()
+        return [_run_record(row, writer_alive) for row in rows]
 
 
 def get_run(conn: sqlite3.Connection, run_id: int, db_path: str | Path) -> RunRecord:
-    row = conn.execute(f"SELECT {_RUN_FIELDS} FROM runs WHERE run_id = ?", (run_id,)).fetchone()
-    if row is None:
-        raise RecordingError(f"run {run_id}: no such run in run store {db_path}")
-    return _run_record(row)
+    with _writer_alive(db_path) as writer_alive:
+        row = conn.execute(f"{_SELECT_RUNS} WHERE r.run_id = ?", (run_id,)).fetchone()
+        if row is None:
+            raise RecordingError(f"run {run_id}: no such run in run store {db_path}")
+        return _run_record(row, writer_alive)
 
 
 def sample_chunks(
