@@ -7,11 +7,21 @@ back from the SQLite run store itself.
 
 from __future__ import annotations
 
+import asyncio
+import signal
+import sys
+
 import numpy as np
 import pytest
-from test_daemon_support import homed_and_ready, recorded_samples, run_for, running_service
+from test_daemon_support import (
+    homed_and_ready,
+    recorded_samples,
+    run_for,
+    running_service,
+    write_rig_config,
+)
 
-from daemon.api.client import ApiClient, ApiError
+from daemon.api.client import ApiClient, ApiError, wait_for_daemon
 from daemon.recording.store import get_run, list_runs, open_for_reading
 from daemon.supervisor import State
 
@@ -110,3 +120,35 @@ async def test_each_sample_records_the_set_point_in_force_and_the_drive_the_rig_
     assert len(pairs) > 100
     for before, after in pairs:
         assert after["drive_applied"] == float(np.float32(before["drive_sent"]))
+
+
+async def test_sigterm_of_poise_run_ends_its_run_with_a_summary_of_the_store(tmp_path):
+    config = write_rig_config(tmp_path)
+    daemon = await asyncio.create_subprocess_exec(
+        sys.executable, "-m", "daemon.cli", "run", "--config", str(config), "--lockstep",
+        stdout=asyncio.subprocess.DEVNULL, stderr=asyncio.subprocess.PIPE,
+    )  # fmt: skip
+    try:
+        async with asyncio.timeout(60.0):
+            async with await wait_for_daemon(tmp_path / "poise.sock", retry_s=0.1) as client:
+                while (await client.request("status"))["recording"]["samples"] < 500:
+                    await asyncio.sleep(0.05)  # polling a remote daemon, as a CLI user would
+        daemon.send_signal(signal.SIGTERM)
+        async with asyncio.timeout(60.0):
+            _out, err = await daemon.communicate()
+    finally:
+        if daemon.returncode is None:
+            daemon.kill()
+            await daemon.wait()
+    assert daemon.returncode == 0, err.decode()[-2000:]
+    conn = open_for_reading(tmp_path / "runs.db")
+    try:
+        (run,) = list_runs(conn, tmp_path / "runs.db")
+    finally:
+        conn.close()
+    assert run.outcome == "completed"
+    summary = run.summary
+    assert summary["samples"] == run.samples_written >= 500
+    assert summary["sample_time_s"] == run.sample_time_s > 0
+    assert summary["last_mode"] == "IDLE" and summary["mode_reached"] == "IDLE"
+    assert summary["trips"] == {} and summary["samples_dropped"] == 0

@@ -210,7 +210,8 @@ def test_run_record_holds_metadata_counts_and_mode_reached(tmp_path):
     assert (run.rig_id, run.outcome, run.operator_notes) == ("kestrel-1", "completed", "new belt")
     assert (run.software_version, run.protocol_version, run.firmware_version) == ("0.1.0", "1", "1.4.2")
     assert run.config_text == '[rig]\nid = "kestrel-1"\n'
-    assert run.summary == {"max_abs_x_m": 0.31}
+    assert run.summary["reported"] == {"max_abs_x_m": 0.31}  # beside the summary of the store
+    assert run.summary["samples"] == 2500
     assert (run.samples_written, run.samples_dropped, run.events_written) == (2500, 0, 1)
     assert run.modes_seen == [0, 1, 2] and run.mode_reached == "SWING_UP"
     assert run.mode_names == MODES
@@ -263,6 +264,46 @@ def test_a_run_s_duration_is_its_device_sample_time(tmp_path):
     assert run.sample_time_s == 999 * 0.002
     assert run.wall_time_s == (run.ended_unix_ns - run.started_unix_ns) / 1e9
     assert get_run(conn, empty, db).sample_time_s is None
+
+
+def test_the_end_of_a_run_stores_a_summary_computed_from_the_store(tmp_path):
+    db = tmp_path / "runs.db"
+    with Recorder(db) as recorder:
+        run_id = recorder.start_run(metadata())
+        for i in range(1, 2501):  # modes 0, 1, 2 (IDLE, HOMING, SWING_UP), 2 ms apart
+            recorder.put_sample(sample_row(i))
+            if i in (700, 1800):
+                recorder.put_event("interlock.trip", "interlock", {"name": "track.soft_limit"})
+        recorder.put_event("interlock.trip", "interlock", {"name": "link.lost", "reason": "gone"})
+        recorder.put_event("device.fault_report", "device", {"faults": 4, "code": 2, "detail": 0})
+        recorder.put_event("supervisor.transition", "api", {"text": "IDLE -> HOMING on home"})
+        recorder.end_run("completed")
+    run = get_run(open_for_reading(db), run_id, db)
+    assert run.summary == {
+        "samples": 2500,
+        "samples_dropped": 0,
+        "events": 5,
+        "events_dropped": 0,
+        "first_t_device_us": 2000,
+        "last_t_device_us": 5_000_000,
+        "sample_time_s": 2499 * 0.002,
+        "wall_time_s": (run.ended_unix_ns - run.started_unix_ns) / 1e9,
+        "modes_seen": ["IDLE", "HOMING", "SWING_UP"],
+        "mode_reached": "SWING_UP",
+        "last_mode": "SWING_UP",
+        "trips": {"track.soft_limit": 2, "link.lost": 1},
+        "device_fault_reports": 1,
+    }
+
+
+def test_a_run_still_open_when_the_recorder_closes_gets_its_summary(tmp_path):
+    db = tmp_path / "runs.db"
+    with Recorder(db) as recorder:
+        closed = recorder.start_run(metadata())
+        recorder.put_sample(sample_row(1))
+    run = get_run(open_for_reading(db), closed, db)
+    assert run.outcome == ABORTED and run.summary["samples"] == 1
+    assert run.summary["last_t_device_us"] == sample_row(1)[1]
 
 
 def test_samples_and_events_land_in_the_run_open_when_they_were_put(tmp_path):
@@ -443,4 +484,5 @@ def test_kill_9_mid_stream_keeps_every_committed_sample_and_the_run_is_marked_ab
     run = get_run(conn, 1, db)
     assert (run.outcome, run.writer_died) == (ABORTED, False)
     assert run.ended_unix_ns == crashed.ended_unix_ns
+    assert run.summary == crashed.summary and run.summary["samples"] == len(rows)
     assert [event[1] for event in run_events(conn, 1)] == ["run.aborted"]

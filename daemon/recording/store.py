@@ -50,6 +50,7 @@ from urllib.parse import quote
 from daemon.recording.errors import RecordingError
 from daemon.recording.modes import most_advanced
 from daemon.recording.schema import SAMPLE_COLUMN_NAMES, SCHEMA_VERSION, check_version, migrate
+from daemon.recording.summary import run_summary
 
 ABORTED = "aborted"  # outcome of a run whose writer ended without closing it
 LOCK_WAIT_S = 1.0  # a reader probing the lock holds it for microseconds; ride that out
@@ -165,31 +166,33 @@ def open_for_reading(db_path: str | Path) -> sqlite3.Connection:
 def recover_unfinished_runs(conn: sqlite3.Connection) -> list[int]:
     """Mark runs left open by a writer that died as aborted; returns their ids.
 
-    The end time is the run's last committed sample (start time if none). Only
-    call this while holding the store's WriterLock.
+    The end time is the run's last committed sample (start time if none), and
+    the run gets its summary (daemon.recording.summary). Only call this while
+    holding the store's WriterLock.
     """
-    open_runs = conn.execute(
-        "SELECT run_id, started_unix_ns, started_host_ns, last_sample_host_ns, samples_written "
-        "FROM runs WHERE outcome IS NULL ORDER BY run_id"
-    ).fetchall()
-    for run_id, started_unix_ns, started_host_ns, last_host_ns, samples_written in open_runs:
-        elapsed_ns = _elapsed_to_last_sample_ns(started_host_ns, last_host_ns)
+    open_ids = [
+        run_id
+        for (run_id,) in conn.execute("SELECT run_id FROM runs WHERE outcome IS NULL ORDER BY run_id")
+    ]
+    for run_id in open_ids:
+        run = _fetch_run(conn, run_id, writer_alive=False)  # read as aborted: what to store
         data = {
             "reason": "the recording process ended without ending the run",
-            "samples_committed": samples_written,
+            "samples_committed": run.samples_written,
             "marked_by_pid": os.getpid(),
         }
+        elapsed_ns = run.ended_unix_ns - run.started_unix_ns
         conn.execute("BEGIN IMMEDIATE")
         conn.execute(
-            "UPDATE runs SET outcome = ?, ended_unix_ns = ? WHERE run_id = ?",
-            (ABORTED, started_unix_ns + elapsed_ns, run_id),
+            "UPDATE runs SET outcome = ?, ended_unix_ns = ?, summary_json = ? WHERE run_id = ?",
+            (run.outcome, run.ended_unix_ns, json.dumps(run.summary), run_id),
         )
         conn.execute(
             "INSERT INTO events (run_id, t_host_ns, kind, source, data_json) VALUES (?, ?, ?, ?, ?)",
-            (run_id, started_host_ns + elapsed_ns, "run.aborted", "recorder", json.dumps(data)),
+            (run_id, run.started_host_ns + elapsed_ns, "run.aborted", "recorder", json.dumps(data)),
         )
         conn.execute("COMMIT")
-    return [row[0] for row in open_runs]
+    return open_ids
 
 
 def _elapsed_to_last_sample_ns(started_host_ns: int, last_sample_host_ns: int | None) -> int:
@@ -279,38 +282,51 @@ _SELECT_RUNS = (
 )
 
 
-def _run_record(row: tuple, writer_alive: bool) -> RunRecord:
+def _run_record(conn: sqlite3.Connection, row: tuple, writer_alive: bool) -> RunRecord:
     values = list(row)
     values[6] = None if row[6] is None else json.loads(row[6])
     values[14] = {int(code): name for code, name in json.loads(row[14])}
     values[15] = json.loads(row[15])
     run = RunRecord(*values)
     if run.outcome is None and not writer_alive:
-        return _as_aborted(run)
+        return _as_aborted(conn, run)
     return run
 
 
-def _as_aborted(run: RunRecord) -> RunRecord:
+def _as_aborted(conn: sqlite3.Connection, run: RunRecord) -> RunRecord:
     """An open run whose writer died, as the next writer will mark it (recover_unfinished_runs)."""
     elapsed_ns = _elapsed_to_last_sample_ns(run.started_host_ns, run.last_sample_host_ns)
-    return dataclasses.replace(
+    run = dataclasses.replace(
         run, outcome=ABORTED, ended_unix_ns=run.started_unix_ns + elapsed_ns, writer_died=True
     )
+    return dataclasses.replace(run, summary=run_summary(conn, run))
+
+
+def _fetch_run(conn: sqlite3.Connection, run_id: int, writer_alive: bool) -> RunRecord | None:
+    row = conn.execute(f"{_SELECT_RUNS} WHERE r.run_id = ?", (run_id,)).fetchone()
+    return None if row is None else _run_record(conn, row, writer_alive)
 
 
 def list_runs(conn: sqlite3.Connection, db_path: str | Path) -> list[RunRecord]:
     """Every run in the store at ``db_path`` (``conn`` opened on it), in order of run id."""
     with _writer_alive(db_path) as writer_alive:
         rows = conn.execute(f"{_SELECT_RUNS} ORDER BY r.run_id").fetchall()
-        return [_run_record(row, writer_alive) for row in rows]
+        return [_run_record(conn, row, writer_alive) for row in rows]
 
 
 def get_run(conn: sqlite3.Connection, run_id: int, db_path: str | Path) -> RunRecord:
     with _writer_alive(db_path) as writer_alive:
-        row = conn.execute(f"{_SELECT_RUNS} WHERE r.run_id = ?", (run_id,)).fetchone()
-        if row is None:
-            raise RecordingError(f"run {run_id}: no such run in run store {db_path}")
-        return _run_record(row, writer_alive)
+        run = _fetch_run(conn, run_id, writer_alive)
+    if run is None:
+        raise RecordingError(f"run {run_id}: no such run in run store {db_path}")
+    return run
+
+
+def written_run(conn: sqlite3.Connection, run_id: int) -> RunRecord:
+    """The run as the writer's own connection sees it, mid-transaction (the writer holds the lock)."""
+    run = _fetch_run(conn, run_id, writer_alive=True)
+    assert run is not None, f"run {run_id} is not in the store its writer is writing"
+    return run
 
 
 def sample_chunks(

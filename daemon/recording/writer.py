@@ -6,7 +6,7 @@ Use from the daemon::
     run_id = recorder.start_run(RunMetadata(rig_id="kestrel-1", config_text=toml_text, ...))
     recorder.put_sample(row)          # every control cycle; never blocks, never raises
     recorder.put_event("mode", "supervisor", {"from": "IDLE", "to": "HOMING"})
-    recorder.end_run("completed", {"max_abs_theta_rad": 0.04})
+    recorder.end_run("completed")    # or end_run("completed", {"max_abs_theta_rad": 0.04})
     recorder.close()
 
 ``Recorder(db_path, ...)`` opens (creates or migrates) the store, takes the
@@ -29,11 +29,15 @@ store's writer lock, marks runs left open by a dead process as ``aborted``
     thread, so hand over a dict you no longer change; it must be
     JSON-serialisable (other values are stored as their ``str``). Safe from any
     thread; dropped and counted when the queue is full.
-``start_run(metadata) -> int`` / ``end_run(outcome, summary) -> None``
+``start_run(metadata) -> int`` / ``end_run(outcome, extra=None) -> None``
     Queue the start or end of a run, in order with the samples and events put
     before and after; neither waits for the disk. Run ids are allocated here,
     which the writer lock makes safe. Samples put while no run is open are
-    discarded and counted as ``unassigned``.
+    discarded and counted as ``unassigned``. When the end is written, the
+    writer computes the run's summary from the store
+    (:func:`daemon.recording.summary.run_summary`: samples, time span, modes,
+    trips, drops) and stores it; a non-empty ``extra`` (figures only the
+    caller knows, e.g. a session's own result) is stored in it as ``reported``.
 ``close(timeout_s=10.0)``
     Write everything queued, end a still-open run as ``aborted``, stop the
     thread, close the file and release the lock. Idempotent.
@@ -78,7 +82,9 @@ from daemon.recording.store import (
     WriterLock,
     open_for_writing,
     recover_unfinished_runs,
+    written_run,
 )
+from daemon.recording.summary import run_summary
 
 DEFAULT_QUEUE_CAPACITY = 65_536  # about 2 minutes at 500 Hz
 DEFAULT_BATCH_ROWS = 5_000
@@ -146,7 +152,7 @@ class _StartRun:
 @dataclass(frozen=True, slots=True)
 class _EndRun:
     outcome: str
-    summary: dict
+    extra: dict
     ended_unix_ns: int
     dropped_total: int
     events_dropped_total: int
@@ -302,14 +308,14 @@ class Recorder:
         self._open_run_id = run_id
         return run_id
 
-    def end_run(self, outcome: str, summary: dict | None = None) -> None:
+    def end_run(self, outcome: str, extra: dict | None = None) -> None:
         if self._open_run_id is None:
             raise RecordingError(f"run store {self.db_path}: end_run({outcome!r}) with no run open")
         with self._special_lock:
             self._put_special(
                 _EndRun(
                     outcome,
-                    summary or {},
+                    extra or {},
                     time.time_ns(),
                     self._samples_dropped,
                     self._events_dropped,
@@ -515,16 +521,23 @@ class Recorder:
         if run is None:
             return
         self._store_progress(run, end)
-        self._conn.execute(
-            "UPDATE runs SET outcome = ?, ended_unix_ns = ?, summary_json = ? WHERE run_id = ?",
-            (
-                end.outcome,
-                end.ended_unix_ns,
-                json.dumps(end.summary, default=str),
-                run.start.run_id,
-            ),
-        )
+        self._close_run(run.start.run_id, end.outcome, end.ended_unix_ns, end.extra)
         self._run = None
+
+    def _close_run(self, run_id: int, outcome: str, ended_unix_ns: int, extra: dict) -> None:
+        """Store the run's outcome and end, then its summary computed from what is now stored."""
+        conn = self._conn
+        conn.execute(
+            "UPDATE runs SET outcome = ?, ended_unix_ns = ? WHERE run_id = ?",
+            (outcome, ended_unix_ns, run_id),
+        )
+        summary = run_summary(conn, written_run(conn, run_id))
+        if extra:
+            summary["reported"] = extra
+        conn.execute(
+            "UPDATE runs SET summary_json = ? WHERE run_id = ?",
+            (json.dumps(summary, default=str), run_id),
+        )
 
     def _store_progress(self, run: _OpenRun, end: _EndRun | None = None) -> None:
         """The run's counters, in the same transaction as the rows they count."""
