@@ -22,7 +22,8 @@ from test_daemon_support import (
 )
 
 from daemon.api.client import ApiClient, ApiError, wait_for_daemon
-from daemon.recording.store import get_run, list_runs, open_for_reading
+from daemon.errors import CommandRefused
+from daemon.recording.store import get_run, list_runs, open_for_reading, run_events
 from daemon.supervisor import State
 
 
@@ -152,3 +153,29 @@ async def test_sigterm_of_poise_run_ends_its_run_with_a_summary_of_the_store(tmp
     assert summary["sample_time_s"] == run.sample_time_s > 0
     assert summary["last_mode"] == "IDLE" and summary["mode_reached"] == "IDLE"
     assert summary["trips"] == {} and summary["samples_dropped"] == 0
+
+
+async def test_after_the_store_fills_up_record_on_is_refused_and_status_says_it_failed(tmp_path):
+    # A 0.2 MB cap on the run store: SQLite fails writes beyond it as for a full disk.
+    capped = {"db_path": f'"{tmp_path / "runs.db"}"\nmax_db_mb = 0.2'}
+    async with running_service(tmp_path, serve_api=True, edits=capped) as service:
+        async with await ApiClient.connect(service.config.api.socket_path) as client:
+            run_id = (await client.request("record", {"on": True}))["run_id"]
+            for _ in range(120):  # 0.2 MB is a few seconds of samples
+                if service.recorder.stats().error is not None:
+                    break
+                await run_for(service, 1.0)
+            recording = (await client.request("status"))["recording"]
+            assert recording["active"] is False and recording["run_id"] == run_id
+            assert "database or disk is full" in recording["error"]
+            with pytest.raises(CommandRefused, match="^recording failed: cannot write run store .*; "):
+                await client.request("record", {"on": True})
+        assert "recording.failed" in [name for name, _t_s, _seq in service.trips]
+        (stored,) = runs(service)
+        assert (stored.run_id, stored.outcome) == (run_id, "write_failed")
+        conn = open_for_reading(service.recorder.db_path)
+        try:
+            kinds = [kind for _t, kind, _source, _data in run_events(conn, run_id)]
+        finally:
+            conn.close()
+        assert kinds[-1] == "recorder.error"

@@ -12,6 +12,7 @@ from __future__ import annotations
 import json
 import math
 import os
+import shlex
 import signal
 import sqlite3
 import subprocess
@@ -28,6 +29,7 @@ from daemon.recording import (
     ABORTED,
     SAMPLE_COLUMN_NAMES,
     SCHEMA_VERSION,
+    WRITE_FAILED,
     Recorder,
     RecordingError,
     RunMetadata,
@@ -350,7 +352,7 @@ def test_full_queue_drops_are_counted_returned_and_stored_in_the_run(tmp_path):
     assert stored_rows(db, run_id) == kept
 
 
-def test_disk_full_stops_recording_with_an_error_and_leaves_a_sound_file(tmp_path):
+def test_disk_full_stops_recording_stores_the_failure_and_leaves_a_sound_file(tmp_path):
     db = tmp_path / "runs.db"
     errors: list[str] = []
     # max_page_count makes SQLite report SQLITE_FULL exactly as for a full disk
@@ -359,22 +361,113 @@ def test_disk_full_stops_recording_with_an_error_and_leaves_a_sound_file(tmp_pat
     run_id = recorder.start_run(metadata())
     for i in range(20_000):  # about 2 MB of samples
         recorder.put_sample(sample_row(i))
-    recorder.end_run("completed")
-    recorder.close()
+    assert recorder.flush()
     stats = recorder.stats()
     assert stats.error is not None and "database or disk is full" in stats.error
     assert str(db) in stats.error and "\n" not in stats.error
     assert errors == [stats.error]
+    assert (stats.active, stats.run_id) == (False, run_id)  # the run is open, nothing is written
     assert stats.written > 0 and stats.written + stats.lost == 20_000
+    with pytest.raises(RecordingError) as refused:
+        recorder.start_run(metadata())
+    assert str(refused.value).startswith(f"recording failed: {stats.error}; ")
+    recorder.end_run("completed")
+    recorder.close()
     assert integrity(db) == "ok"
     # Every committed batch is whole: the run's counters match the rows present.
     rows = stored_rows(db, run_id)
     assert rows == [sample_row(i) for i in range(stats.written)]
-    assert get_run(open_for_reading(db), run_id, db).samples_written == stats.written
-    # The end of the run was never written, so the next start marks it aborted.
+    conn = open_for_reading(db)
+    run = get_run(conn, run_id, db)
+    assert run.samples_written == run.summary["samples"] == stats.written
+    # The failure itself is stored, in the room kept for it, and it ended the run.
+    assert run.outcome == WRITE_FAILED and run.ended_unix_ns is not None
+    ((_t, kind, source, data),) = run_events(conn, run_id)
+    assert (kind, source, json.loads(data)["reason"]) == ("recorder.error", "recorder", stats.error)
+    assert [r.run_id for r in list_runs(conn, db)] == [run_id]  # the refused start left no run
+    conn.close()
     with Recorder(db) as reopened:
-        assert reopened.recovered_runs == [run_id]
-    assert get_run(open_for_reading(db), run_id, db).outcome == ABORTED
+        assert reopened.recovered_runs == []
+
+
+def test_a_size_cap_keeps_room_to_store_its_own_failure(tmp_path):
+    db = tmp_path / "runs.db"
+    recorder = Recorder(db, max_db_bytes=200_000)
+    run_id = recorder.start_run(metadata())
+    # Events of almost a page each (4096-byte pages), one transaction per sample: when the cap
+    # is hit the file is full to the last page, and the error event needs a page of its own.
+    i = 0
+    while recorder.stats().error is None:
+        recorder.put_sample(sample_row(i))
+        recorder.put_event("note", "test", {"text": "x" * 3900})
+        assert recorder.flush()
+        i += 1
+    recorder.close()
+    assert "could not be stored" not in recorder.stats().error
+    conn = open_for_reading(db)
+    assert get_run(conn, run_id, db).outcome == WRITE_FAILED
+    assert run_events(conn, run_id)[-1][1] == "recorder.error"
+
+
+FULL_DISK_WRITER = textwrap.dedent(
+    """
+    import sys
+    sys.path.insert(0, sys.argv[2])
+    from test_recording_store import metadata, sample_row
+    from daemon.recording import Recorder
+
+    recorder = Recorder(sys.argv[1])
+    recorder.start_run(metadata())
+    for i in range(5_000_000):  # far more than the 1 MB file system holds
+        recorder.put_sample(sample_row(i))
+        if i % 500 == 0 and (recorder.flush() and recorder.stats().error is not None):
+            break
+    recorder.close()
+    print(recorder.stats().error)
+    """
+)
+
+
+def in_small_file_system(folder: Path, command: str) -> subprocess.CompletedProcess:
+    """Run ``command`` with a 1 MB tmpfs mounted on ``folder``: a disk that really fills up.
+
+    The mount lives in a private mount namespace of an unprivileged user namespace
+    (unshare(1)), so the test needs no root; it is skipped where the kernel forbids that.
+    """
+    probe = subprocess.run(
+        ["unshare", "-rm", "sh", "-c", f"mount -t tmpfs -o size=64k poise-probe {shlex.quote(str(folder))}"],
+        capture_output=True,
+    )
+    if probe.returncode != 0:
+        pytest.skip(f"no tmpfs in a user namespace here: {probe.stderr.decode().strip()}")
+    script = f"mount -t tmpfs -o size=1m poise-test {shlex.quote(str(folder))} && {command}"
+    return subprocess.run(
+        ["unshare", "-rm", "sh", "-c", script], capture_output=True, text=True, cwd=REPO
+    )
+
+
+def test_a_really_full_disk_still_gets_the_failure_stored(tmp_path):
+    disk, kept = tmp_path / "disk", tmp_path / "kept"
+    disk.mkdir()
+    kept.mkdir()
+    writer = tmp_path / "writer.py"
+    writer.write_text(FULL_DISK_WRITER)
+    db = disk / "runs.db"
+    args = [sys.executable, writer, db, Path(__file__).parent]
+    done = in_small_file_system(
+        disk,
+        f"{shlex.join(map(str, args))} && cp {shlex.quote(str(disk))}/runs.db* {shlex.quote(str(kept))}/",
+    )
+    assert done.returncode == 0, done.stderr[-2000:]
+    error = done.stdout.strip()
+    assert "database or disk is full" in error and "could not be stored" not in error
+    copy = kept / "runs.db"
+    assert integrity(copy) == "ok"
+    conn = open_for_reading(copy)
+    run = get_run(conn, 1, copy)
+    assert run.outcome == WRITE_FAILED and run.samples_written > 0
+    assert [kind for _t, kind, _s, _d in run_events(conn, 1)] == ["recorder.error"]
+    assert stored_rows(copy, 1) == [sample_row(i) for i in range(run.samples_written)]
 
 
 def test_closing_with_a_run_open_ends_it_as_aborted(tmp_path):

@@ -33,7 +33,10 @@ class RecordingSettings(Section):
         description="longest wait before queued samples are committed",
     )
     max_db_mb: float | None = Field(
-        default=None, gt=0.0, description="stop recording (as for a full disk) beyond this size"
+        default=None,
+        gt=0.0,
+        description="stop recording (as for a full disk) beyond this size; the last 64 kB are "
+        "kept to store the failure itself",
     )
 
     @field_validator("db_path")

@@ -53,6 +53,9 @@ from daemon.recording.schema import SAMPLE_COLUMN_NAMES, SCHEMA_VERSION, check_v
 from daemon.recording.summary import run_summary
 
 ABORTED = "aborted"  # outcome of a run whose writer ended without closing it
+WRITE_FAILED = "write_failed"  # outcome of a run cut short because the store could not be written
+FAILURE_RESERVE_BYTES = 64 * 1024
+"""Kept free under a size cap (recording.max_db_mb) to store the failure once the cap is hit."""
 LOCK_WAIT_S = 1.0  # a reader probing the lock holds it for microseconds; ride that out
 
 
@@ -123,11 +126,24 @@ def writer_active(db_path: str | Path) -> bool:
         return alive
 
 
+def limit_size(conn: sqlite3.Connection, max_db_bytes: int, *, keep_reserve: bool) -> None:
+    """Cap the store at ``max_db_bytes``, less FAILURE_RESERVE_BYTES while ``keep_reserve``.
+
+    SQLite then refuses a write that would grow the file beyond the cap with
+    SQLITE_FULL, exactly as for a full disk (sqlite.org/pragma.html#pragma_max_page_count).
+    """
+    page_size = conn.execute("PRAGMA page_size").fetchone()[0]
+    budget = max_db_bytes - (FAILURE_RESERVE_BYTES if keep_reserve else 0)
+    conn.execute(f"PRAGMA max_page_count = {max(1, budget // page_size)}")
+
+
 def open_for_writing(db_path: str | Path, max_db_bytes: int | None = None) -> sqlite3.Connection:
     """Open (creating or migrating) a store; the caller must already hold its WriterLock.
 
-    The connection is in autocommit mode (explicit BEGIN/COMMIT) and may be
-    handed to one other thread (the writer thread) after set-up.
+    With ``max_db_bytes`` the store is capped below it by the failure reserve
+    (:func:`limit_size`). The connection is in autocommit mode (explicit
+    BEGIN/COMMIT) and may be handed to one other thread (the writer thread)
+    after set-up.
     """
     path = str(db_path)
     try:
@@ -138,8 +154,7 @@ def open_for_writing(db_path: str | Path, max_db_bytes: int | None = None) -> sq
         conn.execute("PRAGMA synchronous = NORMAL")  # see the module docstring for why this is safe
         migrate(conn, path)
         if max_db_bytes is not None:
-            page_size = conn.execute("PRAGMA page_size").fetchone()[0]
-            conn.execute(f"PRAGMA max_page_count = {max(1, max_db_bytes // page_size)}")
+            limit_size(conn, max_db_bytes, keep_reserve=True)
     except sqlite3.Error as exc:
         raise RecordingError(f"run store {path}: cannot open for writing: {exc}") from None
     return conn

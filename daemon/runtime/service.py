@@ -329,7 +329,10 @@ class PoiseService:
     def execute(self, command: str, args: dict, source: str) -> dict:
         if command == "record":
             if args.get("on"):
-                return {"run_id": self.start_recording(str(args.get("note", "")))}
+                try:
+                    return {"run_id": self.start_recording(str(args.get("note", "")))}
+                except RecordingError as exc:  # the store failed: no run can start
+                    raise CommandRefused(str(exc)) from None
             self.end_recording("completed")
             return {"run_id": None}
         faults_to_clear = 0
@@ -402,7 +405,7 @@ class PoiseService:
             "samples": stats.written,
             "dropped": stats.dropped,
             "path": self.recorder.db_path,
-            "active": self.run_id is not None,
+            "active": stats.active,
             "error": stats.error,
         }
 
