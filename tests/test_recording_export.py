@@ -7,8 +7,11 @@ pyarrow.parquet: whatever they read must equal the rows in the store.
 from __future__ import annotations
 
 import json
+import re
 import sqlite3
 import sys
+import tomllib
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -21,6 +24,7 @@ from daemon.cli import main
 from daemon.recording import SAMPLE_COLUMN_NAMES, Recorder
 from daemon.recording.export import export_column_names
 
+REPO = Path(__file__).resolve().parents[1]
 UNITS_NAMES = [
     "seq", "t_device_us", "t_host_ns", "cart_counts", "pendulum_counts", "switches", "faults",
     "x_m", "v_mps", "theta_rad", "omega_radps", "drive_requested_v", "drive_sent_v", "mode",
@@ -148,13 +152,40 @@ def test_parquet_round_trip_with_pyarrow(store, tmp_path):
     assert list(modes) == [MODES[code] for code in expected["mode"].astype(int)]
 
 
-def test_parquet_without_pyarrow_is_a_one_line_message(store, tmp_path, monkeypatch, capsys):
+def test_parquet_without_pyarrow_is_one_line_naming_the_extra_to_install(
+    store, tmp_path, monkeypatch, capsys
+):
     monkeypatch.setitem(sys.modules, "pyarrow", None)  # as if pyarrow were not installed
     out = tmp_path / "run1.parquet"
     assert main(["export", "1", "--db", str(store), "--format", "parquet", "--out", str(out)]) == 2
     err = capsys.readouterr().err
-    assert err.count("\n") == 1 and "needs the pyarrow package" in err
+    assert err.count("\n") == 1 and "needs pyarrow, which is not installed" in err
+    assert "pip install 'poise[parquet]'" in err
     assert not out.exists()
+
+
+def test_pyarrow_comes_with_the_parquet_and_test_extras_not_the_plain_install():
+    project = tomllib.loads((REPO / "pyproject.toml").read_text())["project"]
+    requirement_names = {
+        group: {re.split(r"[<>=\[ ]", req)[0] for req in reqs}
+        for group, reqs in [("install", project["dependencies"]),
+                            *project["optional-dependencies"].items()]
+    }  # fmt: skip
+    assert "pyarrow" not in requirement_names["install"]  # README: pip install -e .
+    assert "pyarrow" in requirement_names["parquet"] and "pyarrow" in requirement_names["test"]
+    assert "pandas" not in requirement_names["parquet"]  # only the tests read with pandas
+
+
+def test_export_help_lists_each_format_with_what_it_needs(capsys):
+    with pytest.raises(SystemExit):
+        main(["export", "--help"])
+    help_text = capsys.readouterr().out
+    listed = help_text.split("formats:\n", 1)[1].splitlines()
+    names = [line.split()[0] for line in listed[0::2]]
+    assert names == ["csv", "mat", "npz", "parquet"]
+    needs = [line.strip() for line in listed[1::2]]
+    assert needs[:3] == ["needs: nothing beyond Poise itself"] * 3
+    assert needs[3] == "needs: pyarrow, from the parquet extra: pip install 'poise[parquet]'"
 
 
 def test_unknown_run_names_the_run_and_the_store(store, tmp_path, capsys):

@@ -31,10 +31,10 @@ from pathlib import Path
 import numpy as np
 
 from daemon.errors import OperatorError
+from daemon.recording.formats import FORMATS, PARQUET_EXTRA, PARQUET_INSTALL
 from daemon.recording.schema import MODE_INDEX, SAMPLE_COLUMNS
 from daemon.recording.store import RunRecord, run_events, sample_chunks
 
-FORMATS = ("csv", "mat", "npz", "parquet")
 DRIVE_UNIT_SUFFIX = {"voltage": "v", "force": "n"}
 
 Progress = Callable[[int], None]
@@ -92,6 +92,8 @@ def export_run(conn, run: RunRecord, fmt: str, out: Path, progress: Progress | N
     writers = {"csv": _write_csv, "npz": _write_npz, "mat": _write_mat, "parquet": _write_parquet}
     if fmt not in writers:
         raise OperatorError(f"export --format: {fmt!r} is not one of {', '.join(FORMATS)}")
+    if fmt == "parquet":
+        _check_pyarrow()
     try:
         return writers[fmt](conn, run, out, progress or (lambda done: None))
     except OSError as exc:
@@ -199,15 +201,21 @@ def _write_mat(conn, run: RunRecord, out: Path, progress: Progress) -> int:
     return len(next(iter(arrays.values())))
 
 
-def _write_parquet(conn, run: RunRecord, out: Path, progress: Progress) -> int:
+def _check_pyarrow() -> None:
     try:
-        import pyarrow as pa
-        import pyarrow.parquet as pq
+        import pyarrow  # noqa: F401
     except ImportError:
         raise OperatorError(
-            "export --format parquet: needs the pyarrow package, which is not installed "
-            "(pip install pyarrow); csv, mat and npz work without it"
+            f"export --format parquet: needs pyarrow, which is not installed; install Poise's "
+            f"{PARQUET_EXTRA} extra ({PARQUET_INSTALL}, or pip install -e '.[{PARQUET_EXTRA}]' "
+            "in a checkout); csv, mat and npz need nothing more"
         ) from None
+
+
+def _write_parquet(conn, run: RunRecord, out: Path, progress: Progress) -> int:
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
     types = {"INTEGER": pa.int64(), "REAL": pa.float64()}
     names = export_column_names(run.drive_kind)
     events = [
