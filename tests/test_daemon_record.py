@@ -168,7 +168,8 @@ async def test_after_the_store_fills_up_record_on_is_refused_and_status_says_it_
             recording = (await client.request("status"))["recording"]
             assert recording["active"] is False and recording["run_id"] == run_id
             assert "database or disk is full" in recording["error"]
-            with pytest.raises(CommandRefused, match="^recording failed: cannot write run store .*; "):
+            refused = "^recording failed: cannot write run store .*; "
+            with pytest.raises(CommandRefused, match=refused):
                 await client.request("record", {"on": True})
         assert "recording.failed" in [name for name, _t_s, _seq in service.trips]
         (stored,) = runs(service)

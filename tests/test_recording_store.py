@@ -434,13 +434,14 @@ def in_small_file_system(folder: Path, command: str) -> subprocess.CompletedProc
     The mount lives in a private mount namespace of an unprivileged user namespace
     (unshare(1)), so the test needs no root; it is skipped where the kernel forbids that.
     """
+    where = shlex.quote(str(folder))
     probe = subprocess.run(
-        ["unshare", "-rm", "sh", "-c", f"mount -t tmpfs -o size=64k poise-probe {shlex.quote(str(folder))}"],
+        ["unshare", "-rm", "sh", "-c", f"mount -t tmpfs -o size=64k poise-probe {where}"],
         capture_output=True,
     )
     if probe.returncode != 0:
         pytest.skip(f"no tmpfs in a user namespace here: {probe.stderr.decode().strip()}")
-    script = f"mount -t tmpfs -o size=1m poise-test {shlex.quote(str(folder))} && {command}"
+    script = f"mount -t tmpfs -o size=1m poise-test {where} && {command}"
     return subprocess.run(
         ["unshare", "-rm", "sh", "-c", script], capture_output=True, text=True, cwd=REPO
     )
@@ -453,11 +454,9 @@ def test_a_really_full_disk_still_gets_the_failure_stored(tmp_path):
     writer = tmp_path / "writer.py"
     writer.write_text(FULL_DISK_WRITER)
     db = disk / "runs.db"
-    args = [sys.executable, writer, db, Path(__file__).parent]
-    done = in_small_file_system(
-        disk,
-        f"{shlex.join(map(str, args))} && cp {shlex.quote(str(disk))}/runs.db* {shlex.quote(str(kept))}/",
-    )
+    write = shlex.join(map(str, [sys.executable, writer, db, Path(__file__).parent]))
+    keep = f"cp {shlex.quote(str(disk))}/runs.db* {shlex.quote(str(kept))}/"
+    done = in_small_file_system(disk, f"{write} && {keep}")
     assert done.returncode == 0, done.stderr[-2000:]
     error = done.stdout.strip()
     assert "database or disk is full" in error and "could not be stored" not in error

@@ -185,10 +185,8 @@ def recover_unfinished_runs(conn: sqlite3.Connection) -> list[int]:
     the run gets its summary (daemon.recording.summary). Only call this while
     holding the store's WriterLock.
     """
-    open_ids = [
-        run_id
-        for (run_id,) in conn.execute("SELECT run_id FROM runs WHERE outcome IS NULL ORDER BY run_id")
-    ]
+    rows = conn.execute("SELECT run_id FROM runs WHERE outcome IS NULL ORDER BY run_id")
+    open_ids = [run_id for (run_id,) in rows]
     for run_id in open_ids:
         run = _fetch_run(conn, run_id, writer_alive=False)  # read as aborted: what to store
         data = {
@@ -338,7 +336,7 @@ def get_run(conn: sqlite3.Connection, run_id: int, db_path: str | Path) -> RunRe
 
 
 def written_run(conn: sqlite3.Connection, run_id: int) -> RunRecord:
-    """The run as the writer's own connection sees it, mid-transaction (the writer holds the lock)."""
+    """The run as the writer's connection sees it, mid-transaction (the writer holds the lock)."""
     run = _fetch_run(conn, run_id, writer_alive=True)
     assert run is not None, f"run {run_id} is not in the store its writer is writing"
     return run

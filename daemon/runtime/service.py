@@ -311,7 +311,7 @@ class PoiseService:
         return self.run_id
 
     def end_recording(self, outcome: str, summary: dict | None = None) -> None:
-        """End the open run; the recorder stores its summary (and ``summary`` in it as ``reported``)."""
+        """End the open run; the recorder stores its summary (``summary`` in it as ``reported``)."""
         if self.recorder is not None and self.run_id is not None:
             self.recorder.end_run(outcome, summary)
         self.run_id = None
