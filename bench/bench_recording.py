@@ -29,7 +29,7 @@ METADATA = RunMetadata(
 
 def row(i: int) -> tuple:
     return (i & 0xFFFF, 2000 * i, 10**12 + 2_000_000 * i, 3 * i, -i, 0, 0,
-            i * 1e-5, 0.1, 0.01, -0.2, 1.5, 1.25, 3, 14.5)  # fmt: skip
+            i * 1e-5, 0.1, 0.01, -0.2, 1.5, 1.25, 3, 14.5, 0.0, 1.2)  # fmt: skip
 
 
 def _empty_call(item: tuple) -> None:

@@ -7,24 +7,28 @@ pyarrow.parquet: whatever they read must equal the rows in the store.
 from __future__ import annotations
 
 import json
+import re
 import sqlite3
 import sys
+import tomllib
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pyarrow.parquet as pq
 import pytest
 from scipy.io import loadmat
-from test_recording_store import metadata, sample_row
+from test_recording_store import MODES, metadata, sample_row
 
 from daemon.cli import main
 from daemon.recording import SAMPLE_COLUMN_NAMES, Recorder
 from daemon.recording.export import export_column_names
 
+REPO = Path(__file__).resolve().parents[1]
 UNITS_NAMES = [
     "seq", "t_device_us", "t_host_ns", "cart_counts", "pendulum_counts", "switches", "faults",
     "x_m", "v_mps", "theta_rad", "omega_radps", "drive_requested_v", "drive_sent_v", "mode",
-    "latency_us",
+    "latency_us", "setpoint_m", "drive_applied_v",
 ]  # fmt: skip
 RUN_SAMPLES = 3000
 
@@ -37,7 +41,7 @@ def store(tmp_path_factory):
         recorder.start_run(metadata(notes="export check"))
         for i in range(RUN_SAMPLES):
             row = sample_row(i)
-            recorder.put_sample(row[:-1] + (None,) if i == 7 else row)
+            recorder.put_sample(row[:14] + (None,) + row[15:] if i == 7 else row)
             if i == 1500:
                 recorder.put_event("mode", "supervisor", {"from": "HOMING", "to": "SWING_UP"})
         recorder.put_event("operator", "api", {"command": "stop", "client": "cli"})
@@ -61,7 +65,8 @@ def stored(db) -> dict[str, np.ndarray]:
 def test_column_names_carry_units_and_the_drive_unit_of_the_rig():
     assert export_column_names("voltage") == UNITS_NAMES
     force = export_column_names("force")
-    assert force[11:13] == ["drive_requested_n", "drive_sent_n"]
+    drive_columns = [force[11], force[12], force[-1]]
+    assert drive_columns == ["drive_requested_n", "drive_sent_n", "drive_applied_n"]
 
 
 def test_runs_json_lists_every_run(store, capsys):
@@ -72,15 +77,19 @@ def test_runs_json_lists_every_run(store, capsys):
         (2, "stopped", 0, 0),
     ]
     assert runs[0]["rig_id"] == "kestrel-1" and runs[0]["mode_reached"] == "SWING_UP"
-    assert runs[1]["mode_reached"] is None
+    assert runs[0]["last_mode"] == "SWING_UP"
+    assert runs[0]["duration_s"] == (RUN_SAMPLES - 1) * 0.002  # device time, samples 2 ms apart
+    assert runs[0]["wall_time_s"] == (runs[0]["ended_unix_ns"] - runs[0]["started_unix_ns"]) / 1e9
+    assert runs[1]["mode_reached"] is None and runs[1]["duration_s"] is None
 
 
 def test_runs_table_names_the_columns(store, capsys):
     assert main(["runs", "--db", str(store)]) == 0
     out = capsys.readouterr().out
-    for heading in ("id", "rig", "start", "duration", "outcome", "samples", "drops"):
-        assert heading in out
-    assert "kestrel-1" in out and "3,000" in out
+    assert out.startswith(f"runs of kestrel-1 in {store}")  # one rig: named once
+    headings = ("id", "start", "duration", "reached", "ended in", "outcome", "samples", "drops")
+    assert all(heading in out for heading in headings)
+    assert "SWING_UP" in out and "3,000" in out and "6.0 s" in out  # 3000 samples 2 ms apart
 
 
 def test_csv_read_back_with_pandas_equals_the_store(store, tmp_path, capsys):
@@ -88,12 +97,13 @@ def test_csv_read_back_with_pandas_equals_the_store(store, tmp_path, capsys):
     assert main(["export", "1", "--db", str(store), "--format", "csv", "--out", str(out)]) == 0
     assert "csv holds samples only" in capsys.readouterr().err
     frame = pd.read_csv(out)
-    assert list(frame.columns) == UNITS_NAMES
+    assert list(frame.columns) == [*UNITS_NAMES, "mode_name"]
     expected = stored(store)
     assert np.isnan(expected["latency_us"][7])
     for name in UNITS_NAMES:
         np.testing.assert_array_equal(frame[name].to_numpy(dtype=np.float64), expected[name])
     assert frame["t_host_ns"].dtype == np.int64
+    assert list(frame["mode_name"]) == [MODES[code] for code in expected["mode"].astype(int)]
 
 
 def test_mat_read_back_with_scipy_equals_the_store(store, tmp_path):
@@ -108,6 +118,8 @@ def test_mat_read_back_with_scipy_equals_the_store(store, tmp_path):
     assert list(mat["events"]["kind"]) == ["mode", "operator"]
     assert json.loads(mat["events"]["data_json"][1]) == {"command": "stop", "client": "cli"}
     assert mat["run"]["rig_id"] == "kestrel-1" and mat["run"]["operator_notes"] == "export check"
+    codes = np.atleast_1d(mat["modes"]["code"]).tolist()
+    assert dict(zip(codes, mat["modes"]["name"], strict=True)) == MODES
 
 
 def test_npz_holds_samples_events_and_the_run_record(store, tmp_path):
@@ -127,7 +139,7 @@ def test_parquet_round_trip_with_pyarrow(store, tmp_path):
     out = tmp_path / "run1.parquet"
     assert main(["export", "1", "--db", str(store), "--format", "parquet", "--out", str(out)]) == 0
     table = pq.read_table(out)
-    assert table.column_names == UNITS_NAMES
+    assert table.column_names == [*UNITS_NAMES, "mode_name"]
     expected = stored(store)
     for name in UNITS_NAMES:
         values = table.column(name).to_numpy(zero_copy_only=False)
@@ -135,15 +147,45 @@ def test_parquet_round_trip_with_pyarrow(store, tmp_path):
     assert table.column("latency_us").null_count == 1  # SQL NULL stays a null
     events = json.loads(table.schema.metadata[b"poise.events"])
     assert [event["kind"] for event in events] == ["mode", "operator"]
+    modes = pd.read_parquet(out, columns=["mode_name"])["mode_name"]
+    assert isinstance(modes.dtype, pd.CategoricalDtype)  # a dictionary column
+    assert list(modes) == [MODES[code] for code in expected["mode"].astype(int)]
 
 
-def test_parquet_without_pyarrow_is_a_one_line_message(store, tmp_path, monkeypatch, capsys):
+def test_parquet_without_pyarrow_is_one_line_naming_the_extra_to_install(
+    store, tmp_path, monkeypatch, capsys
+):
     monkeypatch.setitem(sys.modules, "pyarrow", None)  # as if pyarrow were not installed
     out = tmp_path / "run1.parquet"
     assert main(["export", "1", "--db", str(store), "--format", "parquet", "--out", str(out)]) == 2
     err = capsys.readouterr().err
-    assert err.count("\n") == 1 and "needs the pyarrow package" in err
+    assert err.count("\n") == 1 and "needs pyarrow, which is not installed" in err
+    assert "pip install 'poise[parquet]'" in err
     assert not out.exists()
+
+
+def test_pyarrow_comes_with_the_parquet_and_test_extras_not_the_plain_install():
+    project = tomllib.loads((REPO / "pyproject.toml").read_text())["project"]
+    requirement_names = {
+        group: {re.split(r"[<>=\[ ]", req)[0] for req in reqs}
+        for group, reqs in [("install", project["dependencies"]),
+                            *project["optional-dependencies"].items()]
+    }  # fmt: skip
+    assert "pyarrow" not in requirement_names["install"]  # README: pip install -e .
+    assert "pyarrow" in requirement_names["parquet"] and "pyarrow" in requirement_names["test"]
+    assert "pandas" not in requirement_names["parquet"]  # only the tests read with pandas
+
+
+def test_export_help_lists_each_format_with_what_it_needs(capsys):
+    with pytest.raises(SystemExit):
+        main(["export", "--help"])
+    help_text = capsys.readouterr().out
+    listed = help_text.split("formats:\n", 1)[1].splitlines()
+    names = [line.split()[0] for line in listed[0::2]]
+    assert names == ["csv", "mat", "npz", "parquet"]
+    needs = [line.strip() for line in listed[1::2]]
+    assert needs[:3] == ["needs: nothing beyond Poise itself"] * 3
+    assert needs[3] == "needs: pyarrow, from the parquet extra: pip install 'poise[parquet]'"
 
 
 def test_unknown_run_names_the_run_and_the_store(store, tmp_path, capsys):

@@ -9,28 +9,35 @@ file is undamaged (sqlite.org/pragma.html#pragma_integrity_check).
 
 from __future__ import annotations
 
+import json
 import math
 import os
+import shlex
 import signal
 import sqlite3
 import subprocess
 import sys
 import textwrap
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
 import pytest
 
+from daemon.cli import main
 from daemon.recording import (
     ABORTED,
     SAMPLE_COLUMN_NAMES,
     SCHEMA_VERSION,
+    WRITE_FAILED,
     Recorder,
     RecordingError,
     RunMetadata,
 )
-from daemon.recording.schema import APPLICATION_ID
+from daemon.recording.modes import MODE_PROGRESSION
+from daemon.recording.schema import APPLICATION_ID, MIGRATIONS, MODE_INDEX
 from daemon.recording.store import get_run, list_runs, open_for_reading, run_events, sample_chunks
+from daemon.supervisor import State, state_code_table
 
 REPO = Path(__file__).resolve().parents[1]
 MODES = {0: "IDLE", 1: "HOMING", 2: "SWING_UP", 3: "BALANCE", 9: "FAULT"}
@@ -58,6 +65,8 @@ def sample_values(i):
         11.5 - i * 2.3e-5,
         (i // 1000) % 4,
         20.0 + (i % 100) * 0.125,
+        ((i // 500) % 3 - 1) * 0.05,
+        11.25 - i * 2.25e-5,
     )
 
 
@@ -104,6 +113,35 @@ def test_new_store_is_created_in_wal_mode_at_the_current_schema_version(tmp_path
     assert conn.execute("PRAGMA application_id").fetchone()[0] == APPLICATION_ID
     columns = [row[1] for row in conn.execute("PRAGMA table_info(samples)")]
     assert columns == ["sample_id", "run_id", *SAMPLE_COLUMN_NAMES]
+
+
+def test_a_version_1_store_is_migrated_and_keeps_its_runs(tmp_path):
+    db = tmp_path / "runs.db"
+    conn = sqlite3.connect(db, isolation_level=None)
+    conn.executescript(MIGRATIONS[0].sql)  # version 1 exactly as it was released
+    conn.execute(f"PRAGMA application_id = {APPLICATION_ID}")
+    conn.execute("PRAGMA user_version = 1")
+    conn.execute(
+        "INSERT INTO runs (run_id, rig_id, started_unix_ns, started_host_ns, outcome, config_text, "
+        "config_format, software_version, protocol_version, firmware_version, operator_notes, "
+        "drive_kind, mode_names_json, first_sample_id, last_sample_id, samples_written) "
+        "VALUES (1, 'kestrel-1', 0, 0, 'completed', '', 'toml', '0.1.0', '1', '1.4.2', '', "
+        "'voltage', '[[0, \"IDLE\"]]', 1, 2, 2)"
+    )
+    old_rows = [sample_row(i)[:15] for i in range(2)]  # the 15 columns of version 1
+    conn.executemany(f"INSERT INTO samples VALUES (NULL, 1, {', '.join('?' * 15)})", old_rows)
+    conn.close()
+    with Recorder(db) as recorder:
+        second = recorder.start_run(metadata())
+        recorder.put_sample(sample_row(2))
+        recorder.end_run("completed")
+    conn = sqlite3.connect(db)
+    assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION == 2
+    columns = [row[1] for row in conn.execute("PRAGMA table_info(samples)")]
+    assert columns[-2:] == ["setpoint_m", "drive_applied"]
+    conn.close()
+    assert stored_rows(db, 1) == [row + (None, None) for row in old_rows]
+    assert stored_rows(db, second) == [sample_row(2)]
 
 
 def test_store_from_a_newer_poise_is_refused_with_one_line(tmp_path):
@@ -174,12 +212,100 @@ def test_run_record_holds_metadata_counts_and_mode_reached(tmp_path):
     assert (run.rig_id, run.outcome, run.operator_notes) == ("kestrel-1", "completed", "new belt")
     assert (run.software_version, run.protocol_version, run.firmware_version) == ("0.1.0", "1", "1.4.2")
     assert run.config_text == '[rig]\nid = "kestrel-1"\n'
-    assert run.summary == {"max_abs_x_m": 0.31}
+    assert run.summary["reported"] == {"max_abs_x_m": 0.31}  # beside the summary of the store
+    assert run.summary["samples"] == 2500
     assert (run.samples_written, run.samples_dropped, run.events_written) == (2500, 0, 1)
     assert run.modes_seen == [0, 1, 2] and run.mode_reached == "SWING_UP"
     assert run.mode_names == MODES
     assert run.ended_unix_ns >= run.started_unix_ns
     assert stored_rows(db, run_id) == [sample_row(i) for i in range(2500)]
+
+
+def modes_run(db: Path, codes: list[State]) -> int:
+    """A run with the supervisor's mode table whose samples go through ``codes``, one each."""
+    with Recorder(db) as recorder:
+        run_id = recorder.start_run(replace(metadata(), mode_names=state_code_table()))
+        for i, code in enumerate(codes):
+            row = sample_row(i)
+            recorder.put_sample(row[:MODE_INDEX] + (int(code),) + row[MODE_INDEX + 1 :])
+        recorder.end_run("completed")
+    return run_id
+
+
+def test_mode_progression_names_supervisor_states():
+    assert set(MODE_PROGRESSION) <= {state.name for state in State}
+    assert MODE_PROGRESSION[-1] == State.BALANCE.name
+
+
+def test_mode_reached_is_the_most_advanced_mode_and_the_run_ends_in_its_last(tmp_path):
+    db = tmp_path / "runs.db"
+    path = [State.IDLE, State.HOMING, State.IDLE, State.READY, State.SWING_UP, State.BALANCE,
+            State.STOPPING, State.ESTOP]  # fmt: skip
+    balanced = modes_run(db, path)
+    excited = modes_run(db, [State.IDLE, State.READY, State.EXCITE, State.FAULT])
+    faulted = modes_run(db, [State.DISCONNECTED, State.FAULT])
+    conn = open_for_reading(db)
+    runs = {run.run_id: run for run in list_runs(conn, db)}
+    assert (runs[balanced].mode_reached, runs[balanced].last_mode) == ("BALANCE", "ESTOP")
+    assert (runs[excited].mode_reached, runs[excited].last_mode) == ("EXCITE", "FAULT")
+    assert (runs[faulted].mode_reached, runs[faulted].last_mode) == (None, "FAULT")
+
+
+def test_a_run_s_duration_is_its_device_sample_time(tmp_path):
+    db = tmp_path / "runs.db"
+    with Recorder(db) as recorder:
+        run_id = recorder.start_run(metadata())
+        for i in range(1, 1001):
+            recorder.put_sample(sample_row(i))  # t_device_us = 2000 i: 2 ms apart
+        recorder.end_run("completed")
+        empty = recorder.start_run(metadata())
+        recorder.end_run("completed")
+    conn = open_for_reading(db)
+    run = get_run(conn, run_id, db)
+    assert (run.first_t_device_us, run.last_t_device_us) == (2000, 2_000_000)
+    assert run.sample_time_s == 999 * 0.002
+    assert run.wall_time_s == (run.ended_unix_ns - run.started_unix_ns) / 1e9
+    assert get_run(conn, empty, db).sample_time_s is None
+
+
+def test_the_end_of_a_run_stores_a_summary_computed_from_the_store(tmp_path):
+    db = tmp_path / "runs.db"
+    with Recorder(db) as recorder:
+        run_id = recorder.start_run(metadata())
+        for i in range(1, 2501):  # modes 0, 1, 2 (IDLE, HOMING, SWING_UP), 2 ms apart
+            recorder.put_sample(sample_row(i))
+            if i in (700, 1800):
+                recorder.put_event("interlock.trip", "interlock", {"name": "track.soft_limit"})
+        recorder.put_event("interlock.trip", "interlock", {"name": "link.lost", "reason": "gone"})
+        recorder.put_event("device.fault_report", "device", {"faults": 4, "code": 2, "detail": 0})
+        recorder.put_event("supervisor.transition", "api", {"text": "IDLE -> HOMING on home"})
+        recorder.end_run("completed")
+    run = get_run(open_for_reading(db), run_id, db)
+    assert run.summary == {
+        "samples": 2500,
+        "samples_dropped": 0,
+        "events": 5,
+        "events_dropped": 0,
+        "first_t_device_us": 2000,
+        "last_t_device_us": 5_000_000,
+        "sample_time_s": 2499 * 0.002,
+        "wall_time_s": (run.ended_unix_ns - run.started_unix_ns) / 1e9,
+        "modes_seen": ["IDLE", "HOMING", "SWING_UP"],
+        "mode_reached": "SWING_UP",
+        "last_mode": "SWING_UP",
+        "trips": {"track.soft_limit": 2, "link.lost": 1},
+        "device_fault_reports": 1,
+    }
+
+
+def test_a_run_still_open_when_the_recorder_closes_gets_its_summary(tmp_path):
+    db = tmp_path / "runs.db"
+    with Recorder(db) as recorder:
+        closed = recorder.start_run(metadata())
+        recorder.put_sample(sample_row(1))
+    run = get_run(open_for_reading(db), closed, db)
+    assert run.outcome == ABORTED and run.summary["samples"] == 1
+    assert run.summary["last_t_device_us"] == sample_row(1)[1]
 
 
 def test_samples_and_events_land_in_the_run_open_when_they_were_put(tmp_path):
@@ -226,7 +352,7 @@ def test_full_queue_drops_are_counted_returned_and_stored_in_the_run(tmp_path):
     assert stored_rows(db, run_id) == kept
 
 
-def test_disk_full_stops_recording_with_an_error_and_leaves_a_sound_file(tmp_path):
+def test_disk_full_stops_recording_stores_the_failure_and_leaves_a_sound_file(tmp_path):
     db = tmp_path / "runs.db"
     errors: list[str] = []
     # max_page_count makes SQLite report SQLITE_FULL exactly as for a full disk
@@ -235,22 +361,112 @@ def test_disk_full_stops_recording_with_an_error_and_leaves_a_sound_file(tmp_pat
     run_id = recorder.start_run(metadata())
     for i in range(20_000):  # about 2 MB of samples
         recorder.put_sample(sample_row(i))
-    recorder.end_run("completed")
-    recorder.close()
+    assert recorder.flush()
     stats = recorder.stats()
     assert stats.error is not None and "database or disk is full" in stats.error
     assert str(db) in stats.error and "\n" not in stats.error
     assert errors == [stats.error]
+    assert (stats.active, stats.run_id) == (False, run_id)  # the run is open, nothing is written
     assert stats.written > 0 and stats.written + stats.lost == 20_000
+    with pytest.raises(RecordingError) as refused:
+        recorder.start_run(metadata())
+    assert str(refused.value).startswith(f"recording failed: {stats.error}; ")
+    recorder.end_run("completed")
+    recorder.close()
     assert integrity(db) == "ok"
     # Every committed batch is whole: the run's counters match the rows present.
     rows = stored_rows(db, run_id)
     assert rows == [sample_row(i) for i in range(stats.written)]
-    assert get_run(open_for_reading(db), run_id, db).samples_written == stats.written
-    # The end of the run was never written, so the next start marks it aborted.
+    conn = open_for_reading(db)
+    run = get_run(conn, run_id, db)
+    assert run.samples_written == run.summary["samples"] == stats.written
+    # The failure itself is stored, in the room kept for it, and it ended the run.
+    assert run.outcome == WRITE_FAILED and run.ended_unix_ns is not None
+    ((_t, kind, source, data),) = run_events(conn, run_id)
+    assert (kind, source, json.loads(data)["reason"]) == ("recorder.error", "recorder", stats.error)
+    assert [r.run_id for r in list_runs(conn, db)] == [run_id]  # the refused start left no run
+    conn.close()
     with Recorder(db) as reopened:
-        assert reopened.recovered_runs == [run_id]
-    assert get_run(open_for_reading(db), run_id, db).outcome == ABORTED
+        assert reopened.recovered_runs == []
+
+
+def test_a_size_cap_keeps_room_to_store_its_own_failure(tmp_path):
+    db = tmp_path / "runs.db"
+    recorder = Recorder(db, max_db_bytes=200_000)
+    run_id = recorder.start_run(metadata())
+    # Events of almost a page each (4096-byte pages), one transaction per sample: when the cap
+    # is hit the file is full to the last page, and the error event needs a page of its own.
+    i = 0
+    while recorder.stats().error is None:
+        recorder.put_sample(sample_row(i))
+        recorder.put_event("note", "test", {"text": "x" * 3900})
+        assert recorder.flush()
+        i += 1
+    recorder.close()
+    assert "could not be stored" not in recorder.stats().error
+    conn = open_for_reading(db)
+    assert get_run(conn, run_id, db).outcome == WRITE_FAILED
+    assert run_events(conn, run_id)[-1][1] == "recorder.error"
+
+
+FULL_DISK_WRITER = textwrap.dedent(
+    """
+    import sys
+    sys.path.insert(0, sys.argv[2])
+    from test_recording_store import metadata, sample_row
+    from daemon.recording import Recorder
+
+    recorder = Recorder(sys.argv[1])
+    recorder.start_run(metadata())
+    for i in range(5_000_000):  # far more than the 1 MB file system holds
+        recorder.put_sample(sample_row(i))
+        if i % 500 == 0 and (recorder.flush() and recorder.stats().error is not None):
+            break
+    recorder.close()
+    print(recorder.stats().error)
+    """
+)
+
+
+def in_small_file_system(folder: Path, command: str) -> subprocess.CompletedProcess:
+    """Run ``command`` with a 1 MB tmpfs mounted on ``folder``: a disk that really fills up.
+
+    The mount lives in a private mount namespace of an unprivileged user namespace
+    (unshare(1)), so the test needs no root; it is skipped where the kernel forbids that.
+    """
+    where = shlex.quote(str(folder))
+    probe = subprocess.run(
+        ["unshare", "-rm", "sh", "-c", f"mount -t tmpfs -o size=64k poise-probe {where}"],
+        capture_output=True,
+    )
+    if probe.returncode != 0:
+        pytest.skip(f"no tmpfs in a user namespace here: {probe.stderr.decode().strip()}")
+    script = f"mount -t tmpfs -o size=1m poise-test {where} && {command}"
+    return subprocess.run(
+        ["unshare", "-rm", "sh", "-c", script], capture_output=True, text=True, cwd=REPO
+    )
+
+
+def test_a_really_full_disk_still_gets_the_failure_stored(tmp_path):
+    disk, kept = tmp_path / "disk", tmp_path / "kept"
+    disk.mkdir()
+    kept.mkdir()
+    writer = tmp_path / "writer.py"
+    writer.write_text(FULL_DISK_WRITER)
+    db = disk / "runs.db"
+    write = shlex.join(map(str, [sys.executable, writer, db, Path(__file__).parent]))
+    keep = f"cp {shlex.quote(str(disk))}/runs.db* {shlex.quote(str(kept))}/"
+    done = in_small_file_system(disk, f"{write} && {keep}")
+    assert done.returncode == 0, done.stderr[-2000:]
+    error = done.stdout.strip()
+    assert "database or disk is full" in error and "could not be stored" not in error
+    copy = kept / "runs.db"
+    assert integrity(copy) == "ok"
+    conn = open_for_reading(copy)
+    run = get_run(conn, 1, copy)
+    assert run.outcome == WRITE_FAILED and run.samples_written > 0
+    assert [kind for _t, kind, _s, _d in run_events(conn, 1)] == ["recorder.error"]
+    assert stored_rows(copy, 1) == [sample_row(i) for i in range(run.samples_written)]
 
 
 def test_closing_with_a_run_open_ends_it_as_aborted(tmp_path):
@@ -311,7 +527,9 @@ WRITER_SCRIPT = textwrap.dedent(
 )
 
 
-def test_kill_9_mid_stream_keeps_every_committed_sample_and_the_run_is_marked_aborted(tmp_path):
+def test_kill_9_mid_stream_keeps_every_committed_sample_and_the_run_is_marked_aborted(
+    tmp_path, capsys
+):
     db = tmp_path / "runs.db"
     child = subprocess.Popen(
         [sys.executable, "-c", WRITER_SCRIPT, str(db), str(Path(__file__).parent)],
@@ -335,16 +553,28 @@ def test_kill_9_mid_stream_keeps_every_committed_sample_and_the_run_is_marked_ab
     rows = stored_rows(db, 1)
     assert len(rows) >= committed
     assert rows == [sample_row(i) for i in range(len(rows))]
+    last_sample_offset_ns = rows[-1][2] - sample_row(0)[2]
+    # Read before any writer runs again: the dead writer's lock is gone, so the run reads as aborted
+    # at its last committed sample, though the file still holds it open.
     conn = open_for_reading(db)
-    (open_run,) = list_runs(conn)
-    assert open_run.outcome is None and open_run.samples_written == len(rows)
+    (crashed,) = list_runs(conn, db)
+    assert (crashed.outcome, crashed.writer_died) == (ABORTED, True)
+    assert crashed == get_run(conn, 1, db)
+    assert crashed.samples_written == len(rows)
+    assert crashed.ended_unix_ns - crashed.started_unix_ns == last_sample_offset_ns
+    assert crashed.last_t_device_us == rows[-1][1]
+    assert crashed.sample_time_s == (rows[-1][1] - rows[0][1]) / 1e6
+    assert conn.execute("SELECT outcome FROM runs").fetchall() == [(None,)]  # read, not written
     conn.close()
+    assert main(["runs", "--db", str(db), "--json"]) == 0
+    (listed,) = json.loads(capsys.readouterr().out)
+    assert (listed["outcome"], listed["samples"]) == (ABORTED, len(rows))
 
     with Recorder(db) as recorder:
         assert recorder.recovered_runs == [1]
     conn = open_for_reading(db)
     run = get_run(conn, 1, db)
-    assert run.outcome == ABORTED
-    last_sample_offset_ns = rows[-1][2] - sample_row(0)[2]
-    assert run.ended_unix_ns - run.started_unix_ns == last_sample_offset_ns
+    assert (run.outcome, run.writer_died) == (ABORTED, False)
+    assert run.ended_unix_ns == crashed.ended_unix_ns
+    assert run.summary == crashed.summary and run.summary["samples"] == len(rows)
     assert [event[1] for event in run_events(conn, 1)] == ["run.aborted"]

@@ -7,20 +7,22 @@ import sys
 from pathlib import Path
 
 from daemon.commands.runs import add_store_arguments, store_path
+from daemon.recording.formats import FORMATS
 
 NAME = "export"
-HELP = "write one recorded run's samples (and events, except in csv) to csv, mat, npz or parquet"
-FORMATS = ("csv", "mat", "npz", "parquet")
+HELP = f"write one recorded run's samples (and events, except in csv) to {', '.join(FORMATS)}"
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.formatter_class = argparse.RawDescriptionHelpFormatter  # keep the table's lines
+    parser.epilog = "formats:\n" + "\n".join(
+        f"  {name:<8} {f.holds}\n  {'':<8} needs: {f.needs or 'nothing beyond Poise itself'}"
+        for name, f in FORMATS.items()
+    )
     parser.add_argument("run_id", metavar="RUN", type=int, help="run id (see `poise runs`)")
     add_store_arguments(parser)
     parser.add_argument(
-        "--format",
-        required=True,
-        choices=FORMATS,
-        help="csv: samples only; mat, npz, parquet: samples, events and the run record",
+        "--format", required=True, choices=list(FORMATS), help="see the formats below"
     )
     parser.add_argument(
         "--out", metavar="FILE", help="output file (default: <rig>-run<RUN>.<format>)"

@@ -10,7 +10,10 @@ from pathlib import Path
 from daemon.commands import add_config_argument, config_path
 
 NAME = "runs"
-HELP = "list recorded runs (id, rig, start, duration, mode reached, outcome, samples, drops)"
+HELP = (
+    "list recorded runs (id, rig, start, sample time, mode reached, mode ended in, outcome, "
+    "samples, drops)"
+)
 
 
 def add_store_arguments(parser: argparse.ArgumentParser) -> None:
@@ -34,7 +37,7 @@ def store_path(args: argparse.Namespace) -> Path:
     if args.db:
         return Path(args.db)
     source = config_path(args)
-    path = Path(load_config(source).recording.db_path).expanduser()
+    path = Path(load_config(source).recording.db_path)
     if not path.is_file():
         raise OperatorError(
             f"run store {path}: no such file (recording.db_path in {source}); "
@@ -44,24 +47,26 @@ def store_path(args: argparse.Namespace) -> Path:
 
 
 def run(args: argparse.Namespace) -> int:
-    from daemon.recording.store import list_runs, open_for_reading, writer_active
+    from daemon.recording.store import list_runs, open_for_reading
 
     path = store_path(args)
     conn = open_for_reading(path)
     try:
-        runs = list_runs(conn)
+        runs = list_runs(conn, path)
     finally:
         conn.close()
-    recording_now = writer_active(path)
     rows = [
         {
             "run_id": run.run_id,
             "rig_id": run.rig_id,
             "started": _local_time(run.started_unix_ns),
             "started_unix_ns": run.started_unix_ns,
-            "duration_s": run.duration_s,
+            "ended_unix_ns": run.ended_unix_ns,
+            "duration_s": run.sample_time_s,
+            "wall_time_s": run.wall_time_s,
             "mode_reached": run.mode_reached,
-            "outcome": run.outcome or ("recording" if recording_now else "unfinished"),
+            "last_mode": run.last_mode,
+            "outcome": run.outcome or "recording",
             "samples": run.samples_written,
             "drops": run.samples_dropped,
             "events_dropped": run.events_dropped,
@@ -88,37 +93,47 @@ def _print_table(path: Path, rows: list[dict]) -> None:
     if not rows:
         console.print(f"no runs recorded in {path}")
         return
+    rigs = sorted({row["rig_id"] for row in rows})
+    one_rig = len(rigs) == 1  # the usual case, one store per rig: name it once, in the title
     table = Table(
-        title=f"runs in {path}",
+        title=f"runs of {rigs[0]} in {path}" if one_rig else f"runs in {path}",
         title_justify="left",
         box=box.SIMPLE_HEAD,
         padding=(0, 1, 0, 0),
         pad_edge=False,
     )
-    for heading, justify in (
+    headings = [
         ("id", "right"),
         ("rig", "left"),
         ("start", "left"),
         ("duration", "right"),
-        ("mode reached", "left"),
+        ("reached", "left"),
+        ("ended in", "left"),
         ("outcome", "left"),
         ("samples", "right"),
         ("drops", "right"),
-    ):
+    ]
+    if one_rig:
+        headings.remove(("rig", "left"))
+    for heading, justify in headings:
         table.add_column(heading, justify=justify, no_wrap=heading in ("start", "samples"))
     for row in rows:
         duration = "-" if row["duration_s"] is None else f"{row['duration_s']:.1f} s"
         drops = f"{row['drops']:,}"
         if row["events_dropped"]:
             drops += f" (+{row['events_dropped']:,} events)"
-        table.add_row(
+        cells = [
             str(row["run_id"]),
             row["rig_id"],
             row["started"].replace("T", " ")[:16],
             duration,
             row["mode_reached"] or "-",
+            row["last_mode"] or "-",
             row["outcome"],
             f"{row['samples']:,}",
             f"[bold red]{drops}[/]" if drops != "0" else drops,
-        )
+        ]
+        if one_rig:
+            del cells[1]
+        table.add_row(*cells)
     console.print(table)

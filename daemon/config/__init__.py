@@ -2,7 +2,10 @@
 
 ``load_config(path)`` returns a frozen :class:`PoiseConfig` or raises
 :class:`ConfigError` whose ``problems`` are one line each, naming the field path
-(``cart.mass_kg``) and what is allowed there.
+(``cart.mass_kg``) and what is allowed there. Paths in a config file are taken
+from the file's own folder (``recording.db_path`` comes back absolute), so a
+command finds the same run store whatever its working directory; the built-in
+demo rig's store, and that of a config parsed from text, is in the working directory.
 """
 
 from __future__ import annotations
@@ -126,7 +129,10 @@ def load_config(path: str | Path) -> PoiseConfig:
         raise ConfigError(str(path), [f"cannot read file: {exc.strerror}"]) from None
     except UnicodeDecodeError:
         raise ConfigError(str(path), ["not UTF-8 text"]) from None
-    return parse_config(text, str(path))
+    config = parse_config(text, str(path))
+    if path.resolve() == demo_config_path().resolve():
+        return config  # part of the program, not of a rig folder: its store goes where it is run
+    return config.model_copy(update={"recording": config.recording.with_db_path_from(path.parent)})
 
 
 def demo_config_path() -> Path:

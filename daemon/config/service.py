@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import os
+from pathlib import Path
+
 from pydantic import Field, ValidationInfo, field_validator
 
 from daemon.config.base import Section
@@ -16,7 +19,9 @@ class RecordingSettings(Section):
     db_path: str = Field(
         default="poise-runs.db",
         min_length=1,
-        description="relative paths are from the working directory",
+        description="the run store file; ~ is the home folder; a relative path is from the folder "
+        "of the config file (load_config), or from the working directory for a config given as "
+        "text (parse_config) and for the built-in demo rig",
     )
     queue_capacity: int = Field(
         default=65_536, ge=1_000, le=10_000_000, description="samples held while the disk is slow"
@@ -28,8 +33,20 @@ class RecordingSettings(Section):
         description="longest wait before queued samples are committed",
     )
     max_db_mb: float | None = Field(
-        default=None, gt=0.0, description="stop recording (as for a full disk) beyond this size"
+        default=None,
+        gt=0.0,
+        description="stop recording (as for a full disk) beyond this size; the last 64 kB are "
+        "kept to store the failure itself",
     )
+
+    @field_validator("db_path")
+    @classmethod
+    def _expand_home(cls, value: str) -> str:
+        return os.path.expanduser(value)
+
+    def with_db_path_from(self, folder: Path) -> RecordingSettings:
+        """A copy whose relative ``db_path`` is taken from ``folder`` (made absolute)."""
+        return self.model_copy(update={"db_path": os.path.abspath(Path(folder) / self.db_path)})
 
 
 class ApiSettings(Section):

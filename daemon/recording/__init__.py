@@ -6,13 +6,14 @@ runs back; ``export`` writes one run to CSV, MAT, NPZ or Parquet.
 
 from daemon.recording.errors import RecordingError
 from daemon.recording.schema import SAMPLE_COLUMN_NAMES, SCHEMA_VERSION
-from daemon.recording.store import ABORTED, RunRecord
+from daemon.recording.store import ABORTED, WRITE_FAILED, RunRecord
 from daemon.recording.writer import Recorder, RecorderStats, RunMetadata
 
 __all__ = [
     "ABORTED",
     "SAMPLE_COLUMN_NAMES",
     "SCHEMA_VERSION",
+    "WRITE_FAILED",
     "Recorder",
     "RecorderStats",
     "RecordingError",

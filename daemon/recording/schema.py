@@ -28,9 +28,8 @@ class SampleColumn(NamedTuple):
     meaning: str
 
 
-# Order of the sample row tuple handed to Recorder.put_sample (and of the table columns
-# after sample_id and run_id). Drive values are volts or newtons per runs.drive_kind.
-SAMPLE_COLUMNS: tuple[SampleColumn, ...] = (
+# The sample columns of schema version 1, in table order. Frozen: later versions only append.
+_SAMPLE_COLUMNS_V1: tuple[SampleColumn, ...] = (
     SampleColumn("seq", "INTEGER", "telemetry header sequence number (wraps at 65536)"),
     SampleColumn("t_device_us", "INTEGER", "device sample time, microseconds"),
     SampleColumn("t_host_ns", "INTEGER", "host receive time, nanoseconds (monotonic clock)"),
@@ -47,11 +46,20 @@ SAMPLE_COLUMNS: tuple[SampleColumn, ...] = (
     SampleColumn("mode", "INTEGER", "supervisor mode code (runs.mode_names_json names it)"),
     SampleColumn("latency_us", "REAL", "host latency, frame in to command out"),
 )
+# Appended by schema version 2 (NULL in samples recorded before it).
+_SAMPLE_COLUMNS_V2: tuple[SampleColumn, ...] = (
+    SampleColumn("setpoint_m", "REAL", "cart set-point in force for this sample"),
+    SampleColumn("drive_applied", "REAL", "drive the device reports it applied (Telemetry)"),
+)
+
+# Order of the sample row tuple handed to Recorder.put_sample (and of the table columns
+# after sample_id and run_id). Drive values are volts or newtons per runs.drive_kind.
+SAMPLE_COLUMNS: tuple[SampleColumn, ...] = _SAMPLE_COLUMNS_V1 + _SAMPLE_COLUMNS_V2
 SAMPLE_COLUMN_NAMES: tuple[str, ...] = tuple(column.name for column in SAMPLE_COLUMNS)
 MODE_INDEX = SAMPLE_COLUMN_NAMES.index("mode")
 T_HOST_INDEX = SAMPLE_COLUMN_NAMES.index("t_host_ns")
 
-_SAMPLE_COLUMNS_DDL = ",\n    ".join(f"{c.name} {c.sql_type}" for c in SAMPLE_COLUMNS)
+_SAMPLE_COLUMNS_DDL = ",\n    ".join(f"{c.name} {c.sql_type}" for c in _SAMPLE_COLUMNS_V1)
 
 _SCHEMA_V1 = f"""
 CREATE TABLE runs (
@@ -102,7 +110,14 @@ class Migration(NamedTuple):
     sql: str
 
 
-MIGRATIONS: tuple[Migration, ...] = (Migration(0, "create runs, samples and events", _SCHEMA_V1),)
+_SCHEMA_V2 = "\n".join(
+    f"ALTER TABLE samples ADD COLUMN {c.name} {c.sql_type};" for c in _SAMPLE_COLUMNS_V2
+)
+
+MIGRATIONS: tuple[Migration, ...] = (
+    Migration(0, "create runs, samples and events", _SCHEMA_V1),
+    Migration(1, "samples: add setpoint_m and drive_applied", _SCHEMA_V2),
+)
 SCHEMA_VERSION = len(MIGRATIONS)
 
 

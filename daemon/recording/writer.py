@@ -6,7 +6,7 @@ Use from the daemon::
     run_id = recorder.start_run(RunMetadata(rig_id="kestrel-1", config_text=toml_text, ...))
     recorder.put_sample(row)          # every control cycle; never blocks, never raises
     recorder.put_event("mode", "supervisor", {"from": "IDLE", "to": "HOMING"})
-    recorder.end_run("completed", {"max_abs_theta_rad": 0.04})
+    recorder.end_run("completed")    # or end_run("completed", {"max_abs_theta_rad": 0.04})
     recorder.close()
 
 ``Recorder(db_path, ...)`` opens (creates or migrates) the store, takes the
@@ -18,7 +18,7 @@ store's writer lock, marks runs left open by a dead process as ``aborted``
     ``row`` is a plain tuple in ``schema.SAMPLE_COLUMN_NAMES`` order: seq,
     t_device_us, t_host_ns, cart_counts, pendulum_counts, switches, faults,
     x_m, v_mps, theta_rad, omega_radps, drive_requested, drive_sent, mode,
-    latency_us. ``t_host_ns`` must come from ``host_clock_ns`` (default
+    latency_us, setpoint_m, drive_applied. ``t_host_ns`` must come from ``host_clock_ns`` (default
     ``time.monotonic_ns``). Appends to the queue and returns True; if the queue
     holds ``queue_capacity`` items the row is counted as dropped and False is
     returned. Meant for one producer thread (the control cycle).
@@ -29,11 +29,15 @@ store's writer lock, marks runs left open by a dead process as ``aborted``
     thread, so hand over a dict you no longer change; it must be
     JSON-serialisable (other values are stored as their ``str``). Safe from any
     thread; dropped and counted when the queue is full.
-``start_run(metadata) -> int`` / ``end_run(outcome, summary) -> None``
+``start_run(metadata) -> int`` / ``end_run(outcome, extra=None) -> None``
     Queue the start or end of a run, in order with the samples and events put
     before and after; neither waits for the disk. Run ids are allocated here,
     which the writer lock makes safe. Samples put while no run is open are
-    discarded and counted as ``unassigned``.
+    discarded and counted as ``unassigned``. When the end is written, the
+    writer computes the run's summary from the store
+    (:func:`daemon.recording.summary.run_summary`: samples, time span, modes,
+    trips, drops) and stores it; a non-empty ``extra`` (figures only the
+    caller knows, e.g. a session's own result) is stored in it as ``reported``.
 ``close(timeout_s=10.0)``
     Write everything queued, end a still-open run as ``aborted``, stop the
     thread, close the file and release the lock. Idempotent.
@@ -49,12 +53,21 @@ most about two flush intervals of samples and a crash loses at most the
 transaction in flight. Queue-full drops are stored in the run record.
 
 If a write fails (disk full, the file became unwritable, I/O error), the
-transaction is rolled back (the file stays consistent), ``stats().error``
-holds a one-line reason, ``on_error(reason)`` is called from the writer
-thread, and a ``recorder.error`` event is stored if the store still accepts
-one. From then on nothing more is written: queued and later samples are
-counted as ``lost``. The daemon must stop the rig; recording resumes only
-with a new Recorder.
+transaction is rolled back (the file stays consistent), and in one more
+small transaction the writer stores the failure: a ``recorder.error`` event
+with the reason, and the end of the open run, outcome ``write_failed``, with
+its summary of what was committed. That last transaction finds room where
+there is any: under a size cap (``max_db_bytes``) the writer keeps
+``FAILURE_RESERVE_BYTES`` free for it and gives them up now; on a full disk
+it reuses the space in the ``-wal`` file that the rolled-back transaction
+had already taken. If even that fails, the reason says so, and it still
+reaches ``stats().error`` and ``on_error(reason)`` (called from the writer
+thread; the daemon trips on it and logs it). From then on nothing more is
+written: queued and later samples are counted as ``lost``, ``stats().active``
+is False, and ``start_run`` raises RecordingError ("recording failed: ...").
+The daemon must stop the rig; recording resumes only with a new Recorder.
+A run started in the moment the write fails may be refused only by the
+writer: its id is then in no run of the store, and the error says why.
 """
 
 from __future__ import annotations
@@ -75,10 +88,14 @@ from daemon.recording.errors import RecordingError
 from daemon.recording.schema import MODE_INDEX, SAMPLE_COLUMN_NAMES, T_HOST_INDEX
 from daemon.recording.store import (
     ABORTED,
+    WRITE_FAILED,
     WriterLock,
+    limit_size,
     open_for_writing,
     recover_unfinished_runs,
+    written_run,
 )
+from daemon.recording.summary import run_summary
 
 DEFAULT_QUEUE_CAPACITY = 65_536  # about 2 minutes at 500 Hz
 DEFAULT_BATCH_ROWS = 5_000
@@ -122,6 +139,8 @@ class RecorderStats:
     """99th percentile of the last 1024 transactions, BEGIN to COMMIT."""
     writer_cpu_s: float
     run_id: int | None
+    active: bool
+    """A run is open and being written (False after a write failure)."""
     error: str | None
 
 
@@ -146,7 +165,7 @@ class _StartRun:
 @dataclass(frozen=True, slots=True)
 class _EndRun:
     outcome: str
-    summary: dict
+    extra: dict
     ended_unix_ns: int
     dropped_total: int
     events_dropped_total: int
@@ -191,6 +210,7 @@ class Recorder:
         self._flush_interval_s = flush_interval_s
         self._host_clock_ns = host_clock_ns
         self._on_error = on_error
+        self._max_db_bytes = max_db_bytes
 
         self._lock = WriterLock(db_path)
         try:
@@ -278,6 +298,11 @@ class Recorder:
         return True
 
     def start_run(self, metadata: RunMetadata) -> int:
+        if self._error is not None:
+            raise RecordingError(
+                f"recording failed: {self._error}; make room for the run store and restart "
+                "the daemon to record again"
+            )
         if self._open_run_id is not None:
             raise RecordingError(
                 f"run store {self.db_path}: run {self._open_run_id} is still open; end it first"
@@ -302,14 +327,14 @@ class Recorder:
         self._open_run_id = run_id
         return run_id
 
-    def end_run(self, outcome: str, summary: dict | None = None) -> None:
+    def end_run(self, outcome: str, extra: dict | None = None) -> None:
         if self._open_run_id is None:
             raise RecordingError(f"run store {self.db_path}: end_run({outcome!r}) with no run open")
         with self._special_lock:
             self._put_special(
                 _EndRun(
                     outcome,
-                    summary or {},
+                    extra or {},
                     time.time_ns(),
                     self._samples_dropped,
                     self._events_dropped,
@@ -374,6 +399,7 @@ class Recorder:
             commit_p99_s=p99,
             writer_cpu_s=self._writer_cpu_s,
             run_id=self._open_run_id,
+            active=self._open_run_id is not None and self._error is None,
             error=self._error,
         )
 
@@ -515,16 +541,23 @@ class Recorder:
         if run is None:
             return
         self._store_progress(run, end)
-        self._conn.execute(
-            "UPDATE runs SET outcome = ?, ended_unix_ns = ?, summary_json = ? WHERE run_id = ?",
-            (
-                end.outcome,
-                end.ended_unix_ns,
-                json.dumps(end.summary, default=str),
-                run.start.run_id,
-            ),
-        )
+        self._close_run(run.start.run_id, end.outcome, end.ended_unix_ns, end.extra)
         self._run = None
+
+    def _close_run(self, run_id: int, outcome: str, ended_unix_ns: int, extra: dict) -> None:
+        """Store the run's outcome and end, then its summary computed from what is now stored."""
+        conn = self._conn
+        conn.execute(
+            "UPDATE runs SET outcome = ?, ended_unix_ns = ? WHERE run_id = ?",
+            (outcome, ended_unix_ns, run_id),
+        )
+        summary = run_summary(conn, written_run(conn, run_id))
+        if extra:
+            summary["reported"] = extra
+        conn.execute(
+            "UPDATE runs SET summary_json = ? WHERE run_id = ?",
+            (json.dumps(summary, default=str), run_id),
+        )
 
     def _store_progress(self, run: _OpenRun, end: _EndRun | None = None) -> None:
         """The run's counters, in the same transaction as the rows they count."""
@@ -548,23 +581,47 @@ class Recorder:
         )
 
     def _fail(self, exc: sqlite3.Error, items: list) -> None:
-        """Roll back, remember why, tell the daemon, and try to leave an error event behind."""
-        if self._conn.in_transaction:
-            self._conn.rollback()
-        reason = f"recording stopped: cannot write run store {self.db_path}: {exc}"
-        run_id = self._run.start.run_id if self._run else None
+        """Roll back, store the failure if the store still takes it, stop, and tell the daemon."""
+        conn = self._conn
+        if conn.in_transaction:
+            conn.rollback()
+        reason = f"cannot write run store {self.db_path}: {exc}"
         try:
-            self._conn.execute(
-                "INSERT INTO events (run_id, t_host_ns, kind, source, data_json) "
-                "VALUES (?, ?, 'recorder.error', 'recorder', ?)",
-                (run_id, self._host_clock_ns(), json.dumps({"reason": reason})),
-            )
+            self._store_failure(reason, rolled_back=sum(1 for i in items if type(i) is tuple))
         except sqlite3.Error as second:
-            reason += f" (the error event could not be stored either: {second})"
+            if conn.in_transaction:
+                conn.rollback()
+            reason += f" (the failure could not be stored either: {second})"
         self._error = reason
+        self._run = None
         self._discard(items)
         if self._on_error is not None:
             self._on_error(reason)
+
+    def _store_failure(self, reason: str, rolled_back: int) -> None:
+        """One last transaction: the error event, and the open run ended as WRITE_FAILED."""
+        conn = self._conn
+        if self._max_db_bytes is not None:
+            limit_size(conn, self._max_db_bytes, keep_reserve=False)  # the reserve is for this
+        run = self._run
+        conn.execute("BEGIN IMMEDIATE")
+        conn.execute(
+            "INSERT INTO events (run_id, t_host_ns, kind, source, data_json) "
+            "VALUES (?, ?, 'recorder.error', 'recorder', ?)",
+            (
+                None if run is None else run.start.run_id,
+                self._host_clock_ns(),
+                json.dumps({"reason": reason, "samples_rolled_back": rolled_back}),
+            ),
+        )
+        if run is not None:
+            # The run's counters stay those of its last committed batch; only the event is new.
+            conn.execute(
+                "UPDATE runs SET events_written = events_written + 1 WHERE run_id = ?",
+                (run.start.run_id,),
+            )
+            self._close_run(run.start.run_id, WRITE_FAILED, time.time_ns(), {})
+        conn.execute("COMMIT")
 
     def _discard(self, items: list) -> None:
         """After a failure: count what will never be written, and release anyone flushing."""

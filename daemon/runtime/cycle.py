@@ -349,6 +349,7 @@ class ControlCycle:
         self.put_sample((
             seq, t_us, t0, cart_counts, pendulum_counts, switches, faults,
             x, v, th, w, requested, drive, self._mode_code, latency_ns * 1e-3,
+            m.setpoint_m, applied,
         ))
         if trip is not None:
             self._on_trip(trip, t_s)

@@ -265,7 +265,7 @@ class PoiseService:
                 async with asyncio.timeout(1.0):
                     await self.link.request(Stop)
         if self.run_id is not None:
-            self.end_recording(outcome, {})
+            self.end_recording(outcome)
         await self._release()
 
     async def _release(self) -> None:
@@ -304,7 +304,7 @@ class PoiseService:
         """Open a new run (ending the open one first); returns its id."""
         assert self.recorder is not None, "start() first"
         if self.run_id is not None:
-            self.end_recording("completed", {})
+            self.end_recording("completed")
         firmware = "unknown"
         if self.hello is not None:
             h = self.hello
@@ -323,7 +323,8 @@ class PoiseService:
         )
         return self.run_id
 
-    def end_recording(self, outcome: str, summary: dict) -> None:
+    def end_recording(self, outcome: str, summary: dict | None = None) -> None:
+        """End the open run; the recorder stores its summary (``summary`` in it as ``reported``)."""
         if self.recorder is not None and self.run_id is not None:
             self.recorder.end_run(outcome, summary)
         self.run_id = None
@@ -346,8 +347,11 @@ class PoiseService:
     def execute(self, command: str, args: dict, source: str) -> dict:
         if command == "record":
             if args.get("on"):
-                return {"run_id": self.start_recording(str(args.get("note", "")))}
-            self.end_recording("completed", {})
+                try:
+                    return {"run_id": self.start_recording(str(args.get("note", "")))}
+                except RecordingError as exc:  # the store failed: no run can start
+                    raise CommandRefused(str(exc)) from None
+            self.end_recording("completed")
             return {"run_id": None}
         faults_to_clear = 0
         if command == "reset" and self.cycle.last_telemetry is not None:
@@ -458,7 +462,7 @@ class PoiseService:
             "samples": stats.written,
             "dropped": stats.dropped,
             "path": self.recorder.db_path,
-            "active": self.run_id is not None,
+            "active": stats.active,
             "error": stats.error,
         }
 
