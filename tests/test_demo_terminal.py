@@ -47,6 +47,15 @@ class Terminal:
     def screen(self) -> str:
         return self.tmux("capture-pane", "-p", "-t", "demo")
 
+    def normal_screen(self) -> str:
+        """The terminal's normal screen, kept while the dashboard draws on the alternate one."""
+        return self.tmux("capture-pane", "-p", "-a", "-t", "demo")
+
+    def demo_socket(self) -> Path:
+        """The control socket of the demo's daemon: in the private folder its first line names."""
+        line = next(l for l in self.normal_screen().splitlines() if "(log: " in l)
+        return Path(line.split("(log: ", 1)[1].rstrip(")")).parent / "kestrel-1.sock"
+
     def keys(self, *keys: str) -> None:
         self.tmux("send-keys", "-t", "demo", *keys)
 
@@ -99,6 +108,8 @@ def test_poise_demo_starts_draws_answers_keys_and_quits_cleanly(tmp_path):
     terminal.start(f"{demo_command(tmp_path)}; echo $? > {exit_file}; sleep 600")
     try:
         screen = terminal.wait_for("rig link   up")
+        socket_path = terminal.demo_socket()
+        assert socket_path.exists() and str(socket_path) in screen  # its own daemon, in its folder
         assert "◆ POISE  kestrel-1" in screen
         assert "SPACE ▸ E-STOP" in screen  # the e-stop key, always on show
         assert any(0x2800 < ord(ch) <= 0x28FF for ch in screen)  # the rig drawn in braille
@@ -115,7 +126,7 @@ def test_poise_demo_starts_draws_answers_keys_and_quits_cleanly(tmp_path):
         assert "poise demo: daemon stopped, rig at rest; recorded run 1 in" in screen
     finally:
         terminal.close()
-    assert not (tmp_path / "poise.sock").exists()  # the daemon closed its control socket
+    assert not socket_path.exists()  # the daemon closed its control socket
     run = recorded_run(tmp_path)
     assert run.samples_written > 0
     assert run.outcome == "completed"  # ended by the daemon's clean shutdown, not recovered
@@ -126,12 +137,14 @@ def test_closing_the_terminal_under_the_demo_shuts_its_daemon_down_cleanly(tmp_p
     terminal.start(demo_command(tmp_path))
     try:
         terminal.wait_for("rig link   up")
+        socket_path = terminal.demo_socket()
+        assert socket_path.exists()
     finally:
         terminal.close()  # the pane's processes get SIGHUP, as when a terminal window closes
     deadline = time.monotonic() + WAIT_LIMIT_S
-    while (tmp_path / "poise.sock").exists() and time.monotonic() < deadline:
+    while socket_path.exists() and time.monotonic() < deadline:
         time.sleep(POLL_S)
-    assert not (tmp_path / "poise.sock").exists(), "the daemon outlived the demo's terminal"
+    assert not socket_path.exists(), "the daemon outlived the demo's terminal"
     while recorded_run(tmp_path).outcome is None and time.monotonic() < deadline:
         time.sleep(POLL_S)
     assert recorded_run(tmp_path).outcome == "completed"

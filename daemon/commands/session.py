@@ -82,6 +82,7 @@ def _print_table(summary: dict) -> None:
         return "-" if value is None else format(value, spec) if isinstance(value, float) else str(value)
 
     latency = summary["latency_us"]
+    loop = summary["loop"]
     rows = [
         ("outcome", summary["outcome"] + (f" ({summary['detail']})" if summary["detail"] else "")),
         ("swing-up", show(summary["swing_up_s"], ".2f") + " s"),
@@ -94,6 +95,10 @@ def _print_table(summary: dict) -> None:
         ("trips", ", ".join(f"{t['reason']} at {t['t_s']:.3f} s" for t in summary["trips"]) or "none"),
         ("latency p50 / p99 / max",
          f"{show(latency['p50'], '.1f')} / {show(latency['p99'], '.1f')} / {show(latency['max'], '.1f')} us"),
+        ("loop lag p99 / max / worst",
+         f"{show(loop['lag_ms_p99'], '.2f')} / {show(loop['lag_ms_max'], '.2f')} / "
+         f"{show(loop['lag_ms_worst'], '.2f')} ms"),
+        ("longest wait between reads", show(loop["read_gap_ms_worst"], ".2f") + " ms"),
         ("run", f"{summary['run_id']} in {summary['recording']}"),
     ]
     for name, value in rows:

@@ -74,6 +74,7 @@ class SessionResult:
     balance_s: float = 0.0
     samples: int = 0
     trips: list[dict] = field(default_factory=list)
+    loop: dict = field(default_factory=dict)  # the daemon's loop lag and read gaps at the end
 
 
 class _Stopped(Exception):
@@ -143,6 +144,7 @@ async def run_session(
     if result.trips and result.outcome == BALANCED:
         result.outcome = "tripped"
     result.samples = cycle.samples - samples_before
+    result.loop = service.loop_status(service.timing_digest())
     service.end_recording(result.outcome, {
         "outcome": result.outcome, "detail": result.detail, "swing_up_s": result.swing_up_s,
         "balance_s": result.balance_s, "samples": result.samples, "trips": result.trips,
@@ -274,6 +276,12 @@ def summarise_run(db_path: str, result: SessionResult) -> dict:
             "p50": percentile(latencies, 0.5) if latencies else None,
             "p99": percentile(latencies, 0.99) if latencies else None,
             "max": latencies[-1] if latencies else None,
+        },
+        "loop": {
+            "lag_ms_p99": result.loop.get("lag_ms_p99"),
+            "lag_ms_max": result.loop.get("lag_ms_max"),
+            "lag_ms_worst": result.loop.get("lag_ms_worst"),
+            "read_gap_ms_worst": result.loop.get("read_gap_ms_worst"),
         },
         "run_id": result.run_id,
         "recording": db_path,
