@@ -59,9 +59,10 @@ from daemon.link.link import Link
 from daemon.recording import Recorder, RunMetadata
 from daemon.runtime.cycle import ControlCycle
 from daemon.runtime.embedded_sim import SimOptions
+from daemon.runtime.pacing import lockstep
 from daemon.runtime.service import PoiseService
 from daemon.runtime.session import swing_up_when_still
-from daemon.supervisor import Output, State, Supervisor, state_code_table
+from daemon.supervisor import Event, Output, State, Supervisor, Transition, state_code_table
 from protocol import (
     ST_ARMED,
     ST_LOCKSTEP,
@@ -104,11 +105,11 @@ async def balancing_in_lockstep(folder: str, seconds: float) -> tuple[dict, dict
     try:
         cycle = service.cycle
         service.execute("home", {}, "api")
-        await cycle.wait_for_state({State.IDLE, State.FAULT})
+        await cycle.waiters.wait_for_state({State.IDLE, State.FAULT})
         service.execute("arm", {}, "api")
         await swing_up_when_still(service)
-        await cycle.wait_for_state({State.BALANCE, State.FAULT, State.IDLE})
-        await cycle.wait_until(cycle.t_s + seconds)
+        await cycle.waiters.wait_for_state({State.BALANCE, State.FAULT, State.IDLE})
+        await cycle.waiters.wait_until(cycle.t_s + seconds)
         assert service.supervisor.machine.state is State.BALANCE, "the pendulum did not stay up"
         return cycle.timing.compute_us(), cycle.timing.stage_us()
     finally:
@@ -179,9 +180,16 @@ class Replay:
         return copy.deepcopy(self._designed)
 
     def _balancing_supervisor(self) -> Supervisor:
+        """A supervisor taken to BALANCE through its own commands and events (no swing-up)."""
         supervisor = Supervisor(self.config, clock=lambda: 0.0)
-        supervisor.machine.state = State.BALANCE  # as after a catch; the bench does not swing up
-        supervisor.machine.output = Output.CONTROL
+        supervisor.note_link(float(self.config.sampling.rate_hz), device_watchdog_active=True)
+        supervisor.notify(Event.LINK_UP, "bench", 0.0)
+        supervisor.execute("home", {}, "bench")
+        supervisor.notify(Event.HOMING_DONE, "bench", 0.0)
+        supervisor.execute("arm", {}, "bench")
+        supervisor.on_sample(0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0, 0, float("nan"))  # held upright
+        supervisor.execute("balance", {}, "bench")
+        assert supervisor.machine.state is State.BALANCE
         return supervisor
 
     @staticmethod
@@ -227,9 +235,11 @@ class Replay:
                     on_fault_report=print, on_write_error=print)
         loop = asyncio.new_event_loop()
         cycle.attach(link, loop)
+        cycle.set_pacing(lockstep(supervisor.limits))  # as the frames' status bit says
         loop.remove_reader(cycle.fd)  # the replay calls the reader callback itself
         cycle.device_armed = True  # nothing to arm on a socket pair
-        cycle.sync()  # enter BALANCE: bumpless reset from the measured state, gc off
+        # Enter BALANCE: bumpless reset from the measured state, gc off.
+        cycle.apply(Transition(State.IDLE, State.BALANCE, Output.OFF, Output.CONTROL, "bench"))
         write, fd, frames, on_readable = os.write, self.peer.fileno(), self.frames, cycle.on_readable
 
         def block(start: int, stop: int) -> None:

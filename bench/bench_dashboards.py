@@ -28,7 +28,7 @@ from pathlib import Path
 REPO = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(REPO))
 
-from daemon.api.client import ApiClient, wait_for_daemon  # noqa: E402
+from daemon.api.client import ApiClient, wait_for_daemon
 
 POISE = [sys.executable, "-m", "daemon.cli"]
 COUNTS = (0, 1, 3)
@@ -91,8 +91,8 @@ async def main(window_s: float) -> None:
         (REPO / "configs" / "kestrel-1.toml").read_text()
         .replace('db_path = "kestrel-1-runs.db"', f'db_path = "{folder / "runs.db"}"')
     )
-    daemon = subprocess.Popen(
-        [*POISE, "run", "--sim", "--config", str(config), "--socket", str(socket_path)],
+    daemon = await asyncio.create_subprocess_exec(
+        *POISE, "run", "--sim", "--config", str(config), "--socket", str(socket_path),
         stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, cwd=REPO,
     )
     results = {}
@@ -103,16 +103,19 @@ async def main(window_s: float) -> None:
         await command(socket_path, "arm")
         await wait_state(socket_path, "READY")
         for count in COUNTS:
-            tmux_socket = start_dashboards(folder, socket_path, count) if count else None
+            tmux_socket = (
+                await asyncio.to_thread(start_dashboards, folder, socket_path, count) if count else None
+            )
             await asyncio.sleep(3.0)  # the dashboards connect and settle
             load = os.getloadavg()[0]
             results[count] = await measure(socket_path, window_s) | {"load": load}
             if tmux_socket is not None:
-                subprocess.run(["tmux", "-S", str(tmux_socket), "kill-server"], check=False)
+                kill = ["tmux", "-S", str(tmux_socket), "kill-server"]
+                await asyncio.to_thread(subprocess.run, kill, check=False)
             await asyncio.sleep(2.0)
     finally:
         daemon.terminate()
-        daemon.wait(timeout=30)
+        await daemon.wait()
     base = results[0]
     print(f"daemon with N dashboards attached ({window_s:g} s each; ratios to N = 0):")
     print(" N  loop lag p99 / max ms   worst read gap ms   latency p50 / p99 us   load  faults")

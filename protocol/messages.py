@@ -43,6 +43,7 @@ CAP_MOTOR_CURRENT = 2
 CAP_SUPPLY_VOLTAGE = 4
 CAP_ESTOP_BUTTON = 8
 CAP_SIMULATED = 16
+CAP_LOCKSTEP = 32  # simulated only: samples once per Drive (section 8.4); needs CAP_SIMULATED
 
 # DeviceHello.drive_kind
 DRIVE_KIND_VOLTS = 0

@@ -39,6 +39,7 @@ from protocol import FrameDecoder, RejectedFrame, encode, encode_telemetry
 from protocol.messages import (
     CAP_ESTOP_BUTTON,
     CAP_LIMIT_SWITCHES,
+    CAP_LOCKSTEP,
     CAP_SIMULATED,
     CAP_SUPPLY_VOLTAGE,
     DRIVE_KIND_NEWTONS,
@@ -215,7 +216,7 @@ class SimulatedDevice:
     def _hello_payload(self) -> tuple:
         params = self.plant.params
         sensors = self.sensors.params
-        capabilities = CAP_SIMULATED
+        capabilities = CAP_SIMULATED | (CAP_LOCKSTEP if self.clock.lockstep else 0)
         if params.track.has_limit_switches:
             capabilities |= CAP_LIMIT_SWITCHES
         if self.identity.has_estop_button:

@@ -8,6 +8,7 @@ back from the SQLite run store itself.
 from __future__ import annotations
 
 import asyncio
+import itertools
 import signal
 import sys
 
@@ -117,7 +118,7 @@ async def test_each_sample_records_the_set_point_in_force_and_the_drive_the_rig_
     assert ready[-1]["setpoint_m"] == 0.1
     # protocol/PROTOCOL.md: a Drive answering sample k is in effect from sample k + 1, and the
     # Telemetry's drive_applied reports it (sent on the wire as float32).
-    pairs = [(a, b) for a, b in zip(ready, ready[1:]) if b["seq"] == (a["seq"] + 1) & 0xFFFF]
+    pairs = [(a, b) for a, b in itertools.pairwise(ready) if b["seq"] == (a["seq"] + 1) & 0xFFFF]
     assert len(pairs) > 100
     for before, after in pairs:
         assert after["drive_applied"] == float(np.float32(before["drive_sent"]))

@@ -82,12 +82,12 @@ async def running_service(
 
 
 async def wait_for(service: PoiseService, *states: State) -> State:
-    return await service.cycle.wait_for_state(set(states))
+    return await service.cycle.waiters.wait_for_state(set(states))
 
 
 async def run_for(service: PoiseService, seconds: float) -> None:
     """Let ``seconds`` of rig time pass."""
-    await service.cycle.wait_until(service.cycle.t_s + seconds)
+    await service.cycle.waiters.wait_until(service.cycle.t_s + seconds)
 
 
 async def homed_and_ready(service: PoiseService) -> None:

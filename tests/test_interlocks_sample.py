@@ -261,8 +261,8 @@ def test_rig_button_is_an_estop_with_the_configured_stop_category(
 
 def test_link_timeout_after_the_configured_milliseconds():
     limits = InterlockLimits.from_config(config())  # the default 30 ms, at 500 Hz
-    assert link_timeout_trip(10.030, 10.0, limits) is None
-    trip = link_timeout_trip(10.032, 10.0, limits)
+    assert link_timeout_trip(10.030, 10.0, limits.link_timeout_s, limits) is None
+    trip = link_timeout_trip(10.032, 10.0, limits.link_timeout_s, limits)
     assert (trip.name, trip.action) == ("link.timeout", Action.DRIVE_OFF)
     assert "32.0 ms (16.0 sample periods)" in trip.reason
 

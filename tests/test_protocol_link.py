@@ -1,9 +1,13 @@
 """Link diagnostics, decoder error reports, the handshake check and acked-command retries."""
 
 import itertools
+import os
+import socket
+import time
 
 import pytest
 
+from daemon.link.link import Link
 from protocol import (
     PROTOCOL_VERSION,
     SCHEMA_FINGERPRINT,
@@ -117,24 +121,41 @@ def test_mismatched_hello_is_refused_naming_both_sides(changes):
     assert "\n" not in text
 
 
+def _writing_link(stats: LinkStats) -> tuple[Link, socket.socket]:
+    """The daemon's link on one end of a socket pair, counting into ``stats``; the other end."""
+    ours, theirs = socket.socketpair()
+    ours.setblocking(False)
+    link = Link(ours.detach(), 50, time.monotonic, on_device_reset=print, on_fault_report=print,
+                on_write_error=print, stats=stats)
+    return link, theirs
+
+
 def test_link_stats_keep_the_last_100_frames_each_way():
     stats = LinkStats(clock=_stepping_clock())
     decoder = FrameDecoder(stats)
+    link, peer = _writing_link(stats)
     for seq in range(150):
         decoder.feed(encode(_telemetry(seq)))
-        stats.record_tx(encode(Drive(seq, 0.0, seq)))
+        assert link.write(encode(Drive(seq, 0.0, seq)))
+        peer.recv(4096)
     assert (stats.frames_rx, stats.frames_tx) == (150, 150)
     assert len(stats.rx_frames) == len(stats.tx_frames) == 100
     assert stats.rx_frames[0][1] + b"\x00" == encode(_telemetry(50))
+    assert stats.tx_frames[0][1] == encode(Drive(50, 0.0, 50))  # as sent, delimiter included
     assert stats.bytes_tx == 150 * len(encode(Drive(0, 0.0, 0)))
+    os.close(link.fd)
+    peer.close()
 
 
 def test_dump_lists_frames_in_time_order_as_wire_hex_then_errors():
     stats = LinkStats(clock=_stepping_clock())
     decoder = FrameDecoder(stats)
+    link, peer = _writing_link(stats)
     decoder.feed(encode(Heartbeat(1)))
-    stats.record_tx(encode(Stop(2)))
+    assert link.write(encode(Stop(2)))
     decoder.feed(b"\x05\x01\x00")
+    os.close(link.fd)
+    peer.close()
     lines = stats.dump().splitlines()
     assert lines[0] == stats.summary()
     assert lines[1] == "0.001000 rx " + encode(Heartbeat(1)).hex(" ")

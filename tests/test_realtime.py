@@ -22,7 +22,7 @@ import time
 
 import pytest
 from test_daemon_support import KESTREL, write_rig_config
-from test_demo_terminal import POLL_S, TMUX, Terminal, demo_command, wait_for_file
+from test_demo_terminal import POLL_S, Terminal, demo_command, wait_for_file
 
 from daemon.api.client import ApiClient
 from daemon.recording.store import open_for_reading, run_events

@@ -437,13 +437,14 @@ def in_small_file_system(folder: Path, command: str) -> subprocess.CompletedProc
     where = shlex.quote(str(folder))
     probe = subprocess.run(
         ["unshare", "-rm", "sh", "-c", f"mount -t tmpfs -o size=64k poise-probe {where}"],
-        capture_output=True,
+        capture_output=True, check=False,
     )
     if probe.returncode != 0:
         pytest.skip(f"no tmpfs in a user namespace here: {probe.stderr.decode().strip()}")
     script = f"mount -t tmpfs -o size=1m poise-test {where} && {command}"
     return subprocess.run(
-        ["unshare", "-rm", "sh", "-c", script], capture_output=True, text=True, cwd=REPO
+        ["unshare", "-rm", "sh", "-c", script], capture_output=True, text=True, cwd=REPO,
+        check=False,
     )
 
 

@@ -5,7 +5,7 @@ import math
 import pytest
 from test_daemon_support import recorded_samples, run_for, running_service
 
-from daemon.runtime.timing import RING_MASK, RING_SAMPLES, STAGES, TimingRings
+from daemon.runtime.timing import RING_MASK, RING_SAMPLES, STAGE_SAMPLE_MASK, STAGES, TimingRings
 
 
 def store(rings: TimingRings, start_ns: int, costs_ns: tuple[int, ...]) -> None:
@@ -53,10 +53,29 @@ async def test_the_cycle_keeps_each_samples_readings_in_stage_order(tmp_path):
         cycle = service.cycle
         assert cycle.timing.count == cycle.samples > 200
         recent = cycle.timing.stamps[: cycle.samples]
-        assert all(len(s) == len(STAGES) + 1 and list(s) == sorted(s) for s in recent)
+        staged = [s for k, s in enumerate(recent) if not k & STAGE_SAMPLE_MASK]
+        others = [s for k, s in enumerate(recent) if k & STAGE_SAMPLE_MASK]
+        assert all(len(s) == len(STAGES) + 1 and list(s) == sorted(s) for s in staged)
+        assert all(s[0] <= s[-1] and set(s[1:-1]) == {0} for s in others)  # latency only
         assert list(service.status()["cycle"]["stages_us"]) == list(STAGES)
         # the latency recorded with each sample spans the readings kept for it
         span_us = {s[0]: (s[-1] - s[0]) / 1000 for s in recent}
         rows = recorded_samples(service)
         assert len(rows) > 200
         assert all(row["latency_us"] == pytest.approx(span_us[row["t_host_ns"]]) for row in rows)
+
+
+def test_stage_figures_come_from_the_timed_samples_latency_from_every_sample():
+    rings = TimingRings()
+    for k in range(160):
+        start = 10**12 + k * 2_000_000
+        if k % 16 == 0:
+            store(rings, start, (1000, 1000, 1000, 1000, 1000, 1000))  # timed: 6 us in all
+        else:  # the cycle's other samples: first and last readings only
+            rings.stamps[rings.count & RING_MASK] = (start, 0, 0, 0, 0, 0, start + 30_000)
+            rings.count += 1
+    digest = rings.digest()
+    assert digest.stages_us["decode"] == {"p50": 1.0, "p99": 1.0}
+    assert digest.compute_p50_us == 5.0
+    assert (digest.latency_p50_us, digest.latency_max_us) == (30.0, 30.0)  # 150 of 160 at 30 us
+    assert digest.worst_gap_us == 2000.0

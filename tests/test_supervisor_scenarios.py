@@ -26,13 +26,16 @@ class Rig:
 
     def sample(self, x_m=0.0, v_mps=0.0, theta_rad=HANGING, omega_radps=0.0, drive=0.0, switches=0, faults=0,
                supply_v=math.nan, dt_s=0.002):  # fmt: skip
+        """One sample; returns the trip it newly latched, if any (its decision is ``self.decided``)."""
         self.t_s += dt_s
-        return self.sup.on_sample(
+        self.decided = self.sup.on_sample(
             self.t_s, x_m, v_mps, theta_rad, omega_radps, drive, switches, faults, supply_v
         )
+        return self.decided.trip
 
     def do(self, command: str, **args) -> dict:
-        return self.sup.execute(command, args, "api")
+        result, _transition = self.sup.execute(command, args, "api")
+        return result
 
     def connect(self) -> None:
         self.sup.notify(Event.LINK_UP, "link", self.t_s)
@@ -207,7 +210,7 @@ def test_device_reset_while_idle_forgets_the_homing():
 def test_events_that_do_not_apply_are_logged_and_ignored():
     rig = Rig()
     rig.connect()
-    assert rig.sup.notify(Event.CAUGHT, "control", rig.t_s) is False
+    assert rig.sup.notify(Event.CAUGHT, "control", rig.t_s) is None  # no transition
     assert rig.sup.machine.state is State.IDLE
     assert rig.sup.status()["events"][-1]["kind"] == "ignored"
 

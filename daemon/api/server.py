@@ -56,6 +56,7 @@ from dataclasses import asdict, dataclass
 from pathlib import Path
 from typing import Protocol, Self
 
+from daemon.api.paths import make_private_dir, runtime_dir
 from daemon.api.wire import (
     BAD_REQUEST,
     FAILED,
@@ -70,7 +71,6 @@ from daemon.api.wire import (
     status_reply_line,
     status_stream_line,
 )
-from daemon.api.paths import make_private_dir, runtime_dir
 from daemon.config.service import ApiSettings
 from daemon.errors import CommandRefused, OperatorError
 

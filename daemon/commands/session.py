@@ -96,8 +96,8 @@ def _print_table(summary: dict) -> None:
         ("latency p50 / p99 / max",
          f"{show(latency['p50'], '.1f')} / {show(latency['p99'], '.1f')} / {show(latency['max'], '.1f')} us"),
         ("loop lag p99 / max / worst",
-         f"{show(loop['lag_ms_p99'], '.2f')} / {show(loop['lag_ms_max'], '.2f')} / "
-         f"{show(loop['lag_ms_worst'], '.2f')} ms"),
+         (f"{show(loop['lag_ms_p99'], '.2f')} / {show(loop['lag_ms_max'], '.2f')} / "
+          f"{show(loop['lag_ms_worst'], '.2f')} ms")),
         ("longest wait between reads", show(loop["read_gap_ms_worst"], ".2f") + " ms"),
         ("run", f"{summary['run_id']} in {summary['recording']}"),
     ]

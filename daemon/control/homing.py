@@ -102,10 +102,9 @@ class Homing:
             self.phase = HomingPhase.DONE
             self.message = "no limit switches: present position declared the track centre"
 
-    def _fail(self, message: str) -> float:
+    def _fail(self, message: str) -> None:
         self.phase = HomingPhase.FAILED
         self.message = f"homing failed: {message}"
-        return 0.0
 
     def _enter(self, phase: HomingPhase, raw_x_m: float) -> None:
         self.phase = phase
@@ -116,48 +115,63 @@ class Homing:
         a = clamp((target - v) / _VELOCITY_TIME_CONSTANT_S, MAX_ACCEL_MPS2)
         return self._drive.command_for(a, v, math.sin(theta), math.cos(theta), omega)
 
-    def update(self, raw_x_m: float, v: float, theta: float, omega: float, switches: int) -> float:
-        """One sample: returns the drive command (0 once finished)."""
+    def advance(self, raw_x_m: float, v: float, switches: int) -> HomingPhase:
+        """Move to the next phase if this sample's measurement says so; returns the phase.
+
+        Decided before any drive is worked out, so the sample that ends homing (DONE or
+        FAILED) is answered by whatever the supervisor decides next, not by homing.
+        """
+        if self.finished:
+            return self.phase
         negative = bool(switches & SW_LIMIT_NEG)
         positive = bool(switches & SW_LIMIT_POS)
-        if self.finished:
-            return 0.0
         self.travelled_m = abs(raw_x_m - self._phase_start_raw_m)
         if negative and positive:
-            return self._fail("both limit switches closed at once (wiring fault?)")
-        if self.phase is HomingPhase.SEEK_NEGATIVE:
+            self._fail("both limit switches closed at once (wiring fault?)")
+        elif self.phase is HomingPhase.SEEK_NEGATIVE:
             if negative:
                 self._negative_raw_m = raw_x_m
                 self._enter(HomingPhase.SEEK_POSITIVE, raw_x_m)
-                return self._velocity(0.0, v, theta, omega)
-            if self._start_raw_m - raw_x_m > self._search_m:
-                return self._fail(
+            elif self._start_raw_m - raw_x_m > self._search_m:
+                self._fail(
                     f"negative limit switch not found after {self._start_raw_m - raw_x_m:.3f} m of travel"
                 )
-            return self._velocity(-self._speed, v, theta, omega)
-        if self.phase is HomingPhase.SEEK_POSITIVE:
+        elif self.phase is HomingPhase.SEEK_POSITIVE:
             travel = raw_x_m - self._negative_raw_m
             if positive:
                 self.measured_travel_m = travel
                 if abs(travel - self.expected_travel_m) > self._tolerance:
-                    return self._fail(
+                    self._fail(
                         f"measured switch-to-switch travel {travel:.3f} m, config says "
                         f"{self.expected_travel_m:.3f} m (track.length_m - 2 track.switch_inset_m); "
                         f"differs by more than homing.length_tolerance_m = {self._tolerance} m"
                     )
-                self.centre_raw_m = self._negative_raw_m + 0.5 * self.expected_travel_m
-                self._enter(HomingPhase.TO_CENTRE, raw_x_m)
-                return self._velocity(0.0, v, theta, omega)
-            if travel > self.expected_travel_m + self._tolerance + 0.05:
-                return self._fail(
+                else:
+                    self.centre_raw_m = self._negative_raw_m + 0.5 * self.expected_travel_m
+                    self._enter(HomingPhase.TO_CENTRE, raw_x_m)
+            elif travel > self.expected_travel_m + self._tolerance + 0.05:
+                self._fail(
                     f"positive limit switch not found {travel:.3f} m past the negative one "
                     f"(expected {self.expected_travel_m:.3f} m)"
                 )
-            return self._velocity(self._speed, v, theta, omega)
-        offset = raw_x_m - self.centre_raw_m
-        if abs(offset) < self._centre_tolerance and abs(v) < 0.2 * self._speed:
+        elif abs(raw_x_m - self.centre_raw_m) < self._centre_tolerance and abs(v) < 0.2 * self._speed:
             self.phase = HomingPhase.DONE
             self.message = f"homed: switch-to-switch travel {self.measured_travel_m:.4f} m"
-            return 0.0
-        target = clamp(-_POSITION_GAIN_PER_S * offset, self._speed)
-        return self._velocity(target - _SWING_DAMPING_PER_S * math.sin(theta), v, theta, omega)
+        return self.phase
+
+    def command(self, raw_x_m: float, v: float, theta: float, omega: float) -> float:
+        """The drive for the present phase (0 once finished)."""
+        phase = self.phase
+        if phase is HomingPhase.SEEK_NEGATIVE:
+            return self._velocity(-self._speed, v, theta, omega)
+        if phase is HomingPhase.SEEK_POSITIVE:
+            return self._velocity(self._speed, v, theta, omega)
+        if phase is HomingPhase.TO_CENTRE:
+            target = clamp(-_POSITION_GAIN_PER_S * (raw_x_m - self.centre_raw_m), self._speed)
+            return self._velocity(target - _SWING_DAMPING_PER_S * math.sin(theta), v, theta, omega)
+        return 0.0
+
+    def update(self, raw_x_m: float, v: float, theta: float, omega: float, switches: int) -> float:
+        """One sample: advance the phase, then the drive command for it (0 once finished)."""
+        self.advance(raw_x_m, v, switches)
+        return self.command(raw_x_m, v, theta, omega)

@@ -1,17 +1,19 @@
 """The protocol's non-telemetry traffic on one port: handshake, acknowledged commands, heartbeats.
 
 The control cycle owns the port's reader callback; it hands every received
-message that is not Telemetry to :meth:`Link.on_message`. The link matches
+message that is not Telemetry to :meth:`Link.on_message`, and writes its Drive
+frames through :meth:`Link.write` like every other frame. The link matches
 Replies (and the DeviceHello answering Identify) to the commands waiting for
 them, resends unanswered commands with the same seq (:class:`RetryTracker`,
 driven by :meth:`Link.poll`), and treats a DeviceHello nobody asked for as a
 device reset.
 
-Handshake (:meth:`Link.handshake`): Identify -> DeviceHello, refused with one
-line naming both protocol versions and both schema fingerprints if they differ;
-then ClearFaults (the reset flag every power-up sets) and Configure (sample rate
-and device watchdog), each retried until answered. Telemetry starts at seq 0
-once the device accepts Configure.
+Handshake: :meth:`Link.identify` (Identify -> DeviceHello, refused with one
+line naming both protocol versions and both schema fingerprints if they differ),
+then, once the host has settled what it needs from the hello, :meth:`Link.configure`
+(ClearFaults, the reset flag every power-up sets, and Configure: sample rate and
+device watchdog), each retried until answered. Telemetry starts at seq 0 once
+the device accepts Configure.
 
 Heartbeats: while the cycle answers telemetry its Drive frames feed the device
 watchdog. :meth:`Link.poll` sends a Heartbeat whenever no frame at all has gone
@@ -45,6 +47,7 @@ from protocol import (
 )
 
 log = logging.getLogger("poise.link")
+_write = os.write
 
 RETRY_TIMEOUT_S = 0.1
 MAX_ATTEMPTS = 5
@@ -55,7 +58,30 @@ class LinkDown(Exception):
 
 
 class Link:
-    """Sends host commands on ``fd`` and matches the device's answers to them."""
+    """Sends host commands on ``fd`` and matches the device's answers to them.
+
+    Slotted, as the control cycle writes every Drive frame through :meth:`write`.
+    """
+
+    __slots__ = (
+        "_answers",
+        "_clock",
+        "_frames_tx_at_check",
+        "_heartbeat_after_s",
+        "_next_heartbeat_check_s",
+        "_on_device_reset",
+        "_on_fault_report",
+        "_on_write_error",
+        "_retry",
+        "_seq",
+        "decoder",
+        "device_resets",
+        "fd",
+        "heartbeats_sent",
+        "hello",
+        "stats",
+        "tx_bytes_dropped",
+    )
 
     def __init__(
         self,
@@ -66,10 +92,11 @@ class Link:
         on_device_reset: Callable[[DeviceHello], None],
         on_fault_report: Callable[[FaultReport], None],
         on_write_error: Callable[[OSError], None],
+        stats: LinkStats | None = None,
     ):
         self.fd = fd
         self._clock = clock
-        self.stats = LinkStats()
+        self.stats = stats if stats is not None else LinkStats()
         self.decoder = FrameDecoder(self.stats)
         self.hello: DeviceHello | None = None
         self.device_resets = 0
@@ -87,18 +114,31 @@ class Link:
 
     # ------------------------------------------------------------------ sending
 
-    def write(self, frame: bytes) -> None:
-        """Write one whole frame now; what the port cannot take is dropped and counted."""
+    def write(self, frame: bytes) -> int:
+        """Write one whole frame now; what the port cannot take is dropped and counted.
+
+        Every frame to the rig goes out here, the control cycle's Drive frames included, so
+        partial writes and the tx statistics are counted in one place. Returns the clock
+        reading (the stats clock, monotonic ns) taken right after the write, which the cycle
+        uses as its command-written time; 0 if the port failed (the write-error handler has
+        been told).
+        """
         try:
-            sent = os.write(self.fd, frame)
+            sent = _write(self.fd, frame)
         except BlockingIOError:
             sent = 0
         except OSError as exc:
             self._on_write_error(exc)
-            return
-        if sent < len(frame):
-            self.tx_bytes_dropped += len(frame) - sent
-        self.stats.record_tx(frame)
+            return 0
+        stats = self.stats
+        t_ns = stats.clock()
+        size = len(frame)
+        if sent < size:
+            self.tx_bytes_dropped += size - sent
+        stats.frames_tx += 1
+        stats.bytes_tx += size
+        stats.tx_frames.append((t_ns, frame, size))  # as sent: delimiter included
+        return t_ns
 
     def _next_seq(self) -> int:
         seq = self._seq
@@ -192,9 +232,12 @@ class Link:
         self.hello = hello
         return hello
 
-    async def handshake(self, sample_rate_hz: int, watchdog_ms: int) -> DeviceHello:
-        """Identify, ClearFaults, Configure; returns the DeviceHello. Raises LinkDown."""
-        hello = await self.identify()
+    async def configure(self, sample_rate_hz: int, watchdog_ms: int) -> None:
+        """ClearFaults (the reset flag every power-up sets), then Configure; raises LinkDown.
+
+        Telemetry starts at seq 0 once the device accepts Configure, possibly in the same read
+        as the Reply: whatever the host must know to read it (the pacing) is settled before.
+        """
         await self.request(ClearFaults)  # a refusal (button pressed) is seen in telemetry
         reply = await self.request(lambda seq: Configure(seq, sample_rate_hz, watchdog_ms))
         assert isinstance(reply, Reply)
@@ -203,4 +246,3 @@ class Link:
                 f"device refused Configure(sample_rate_hz={sample_rate_hz}, watchdog_ms="
                 f"{watchdog_ms}): {ReplyResult(reply.result).name}"
             )
-        return hello

@@ -1,58 +1,72 @@
 """The control cycle: one synchronous reader callback on the port's raw file descriptor.
 
-Per telemetry frame, with no awaits and no queue hops (what it allocates is
-floats and small tuples: the frames, the state, the sample row, the clock
-readings), in one method, :meth:`ControlCycle.on_readable`::
+Per telemetry frame, in one method (:meth:`ControlCycle.on_readable`), with no
+awaits and no queue hops, a straight line::
 
-    os.read -> decode -> estimate -> active mode's controller -> interlocks -> encode Drive -> os.write
+    read -> decode -> estimate -> decision -> output -> clamp -> encode -> write -> record
 
-then the sample row goes to the recorder's queue (``put_sample``, never blocks).
+- *estimate*: the state for the controllers (:class:`StateEstimator`), and the
+  raw rates (plain position differences) for the interlocks.
+- *decision*: whether this sample ends the present mode (:class:`ModeWatch`:
+  caught, fallen, homing or excitation ended), then the supervisor's one
+  :class:`Decision` for the sample: its interlocks on the raw measurements, the
+  mode event, the stop ramp. If the decision carries a transition, the one
+  transition handler (:meth:`apply`) acts on it before the output is worked out.
+- *output*: the decision's output: the controller of its state, the cart
+  velocity loop on the stop ramp's set-point, or zero.
+- *record*: the sample row to the recorder's queue (``put_sample``, never
+  blocks); then the overrun interlock, whose trip acts from the next sample on
+  (this sample's command has gone). The link-error interlock (sequence gaps,
+  corrupt frames) is fed right after decoding, so its trip stops the rig in
+  this very frame.
+
+What it allocates is floats and small tuples (the frames, the state, the
+sample row, the clock readings); a steady decision is a shared object.
+
 The rig's clock paces the loop: every Telemetry is answered by exactly one
 Drive. If several Telemetry frames arrive in one read (the host was late),
-only the newest is answered and the others are counted in ``missed`` (the
-estimator still steps through them, so its rates stay right); the cycle never
-bursts to catch up.
+only the newest is answered; each older one is stepped through the estimator
+(so its rates stay right), recorded unanswered (no drive, no latency) and
+counted in ``missed``. The cycle never bursts to catch up.
 
 Timing: ``t0`` is taken as soon as ``os.read`` returns, ``t_write`` right
-after ``os.write``; their difference is the read->write latency, recorded
-with the sample and fed to the loop-overrun interlock. The clock is also read
-between stages, and the seven readings of each sample go into
-:class:`TimingRings` as one tuple (stage costs are their differences,
-computed when status asks). A rig in lockstep (status bit ST_LOCKSTEP) waits for
-each answer before it samples again, so host latency cannot hurt it there and
-the overrun interlock is not fed.
+after the write; their difference is the read->write latency, recorded with
+every sample and fed to the loop-overrun interlock against the pacing's budget
+(infinite in lockstep, settled at the handshake: :mod:`daemon.runtime.pacing`).
+On one sample in ``STAGE_SAMPLE_MASK + 1`` the clock is also read between the
+stages (a clock reading costs as much as a few hundred float operations in
+CPython); the seven readings of each sample go into :class:`TimingRings` as one
+tuple, with zeros for the stages not timed.
 
-Modes: the supervisor's state picks the controller. Catch, fall and the end of
-homing are decided from this sample's measurement before any controller runs,
-so one sample's command always comes from one controller. Whenever the state
-changes (here, or through an operator command between samples) :meth:`sync`
-resets the newly active controller from the last measured state and last
-drive (bumpless transfer), arms or stops the device, and switches automatic
-garbage collection off while the drive may move (gc.freeze() at start-up keeps
-the collections that remain cheap).
-
-Interlocks have the last word: :meth:`Supervisor.on_sample` runs after the
-controller on the raw measurements; if it latches a fault the command sent in
-this very frame is zero (drive off) or the stop ramp's (controlled stop).
+Transitions (:meth:`apply`): every change of state or output, from a sample's
+decision or from anything between samples (operator commands, watchdog and link
+trips), comes here as a :class:`Transition`: the newly active controller is
+reset from the last measured state and the last drive (bumpless transfer),
+homing takes its new origin, the device is armed or stopped, automatic garbage
+collection is switched off while the drive may move (gc.freeze() at start-up
+keeps the collections that remain cheap), and whoever waits for the state is
+woken.
 """
 
 from __future__ import annotations
 
 import asyncio
 import gc
-import heapq
 import math
 import os
 import time
 from collections.abc import Callable
 
 from daemon.control.cart_loops import CartHold, CartVelocityFollower
-from daemon.control.excitation import Excitation
 from daemon.control.homing import Homing, HomingPhase
 from daemon.control.rig_setup import ControlSet
 from daemon.link.link import Link
-from daemon.runtime.timing import RING_MASK, TimingRings
-from daemon.supervisor import Action, Event, LinkErrorMonitor, Output, State, Supervisor, Trip
+from daemon.runtime.mode_watch import ModeWatch
+from daemon.runtime.pacing import Pacing, real_time
+from daemon.runtime.rig_time import RigTimeWaiters
+from daemon.runtime.timing import RING_MASK, STAGE_SAMPLE_MASK, TimingRings
+from daemon.supervisor import Action, LinkErrorMonitor, Output, State, Supervisor, Trip
+from daemon.supervisor.decision import Transition
 from daemon.supervisor.states import MOTION_STATES
 from daemon.supervisor.stop_ramp import FOLLOWER_ACCEL_FACTOR, FOLLOWER_TIME_CONSTANT_S
 from protocol import (
@@ -76,17 +90,15 @@ _READY = State.READY
 _EXCITE = State.EXCITE
 _CONTROL = Output.CONTROL
 _RAMP = Output.RAMP
-_OFF = Output.OFF
 _LOCKSTEP = ST_LOCKSTEP
 _clock_ns = time.monotonic_ns
 _read = os.read
-_write = os.write
 
 Measured = tuple[float, float, float, float]
 
 
 class ControlCycle:
-    """Everything that happens once per telemetry frame, and the mode switches between frames.
+    """Everything that happens once per telemetry frame, and the one handler of transitions.
 
     Slotted: the hot path reads and writes a few dozen of these attributes every sample, and
     slot access is the cheapest attribute access CPython has.
@@ -99,13 +111,12 @@ class ControlCycle:
         "_estimator",
         "_fall_angle_rad",
         "_last_t_us",
+        "_lockstep_bit",
         "_mode_code",
-        "_next_wake_s",
         "_on_link_lost",
         "_on_message",
         "_on_telemetry_resumed",
         "_on_trip",
-        "_output",
         "_overrun_budget_ns",
         "_period_us",
         "_prev_applied",
@@ -114,14 +125,9 @@ class ControlCycle:
         "_seen_resyncs",
         "_stamps",
         "_state",
-        "_state_waiters",
         "_stats",
-        "_time_waiters",
-        "_waiter_order",
         "controls",
         "device_armed",
-        "excitation",
-        "excite_start_s",
         "fault_mask",
         "fd",
         "follower",
@@ -132,16 +138,18 @@ class ControlCycle:
         "last_telemetry",
         "limit",
         "link",
-        "machine",
         "measured",
         "missed",
+        "modes",
         "monitor",
         "on_state_change",
+        "pacing",
         "put_sample",
         "supervisor",
         "t_s",
         "telemetry_flowing",
         "timing",
+        "waiters",
     )
 
     def __init__(
@@ -156,25 +164,27 @@ class ControlCycle:
     ):
         config = supervisor.config
         self.supervisor = supervisor
-        self.machine = supervisor.machine
         self.controls = controls
         self.homing = homing
+        self.modes = ModeWatch(controls.window, homing)
         self.hold = CartHold(controls.params)
         self.follower = CartVelocityFollower(
             controls.params, FOLLOWER_ACCEL_FACTOR * config.stop.decel_mps2, FOLLOWER_TIME_CONSTANT_S
         )
-        self.excitation: Excitation | None = None
-        self.excite_start_s = 0.0
         self.monitor = LinkErrorMonitor(config)
         self.put_sample = put_sample
         self._on_trip = on_trip
         self._on_link_lost = on_link_lost
         self._on_telemetry_resumed = on_telemetry_resumed
         self.limit = config.drive.limit
-        self._overrun_budget_ns = round(self.monitor.limits.overrun_budget_us * 1000.0)  # int: compared with ints
+        self.pacing: Pacing = real_time(supervisor.limits)
+        self._overrun_budget_ns = 0
+        self._lockstep_bit = 0
+        self.set_pacing(self.pacing)
         self.link: Link | None = None
         self.fd = -1
         self.timing = TimingRings()
+        self.waiters = RigTimeWaiters()
         # Per-sample state, readable by status and the watchdog.
         self.missed = 0
         self.t_s = 0.0
@@ -189,16 +199,11 @@ class ControlCycle:
         self._last_t_us = 0
         self._period_us = round(1e6 / config.sampling.rate_hz)
         self._prev_applied = 0.0
-        self._state = self.machine.state
-        self._output = self.machine.output
+        self._state = State.DISCONNECTED
         self._mode_code = int(self._state)
         self._seen_gaps = 0
         self._seen_corrupt = 0
         self._seen_resyncs = 0
-        self._state_waiters: list[tuple[frozenset[State], asyncio.Future[State]]] = []
-        self._time_waiters: list[tuple[float, int, asyncio.Future[float]]] = []
-        self._next_wake_s = math.inf
-        self._waiter_order = 0
         self.on_state_change: Callable[[State, State], None] | None = None
         # What the hot path uses every sample, one attribute away. Objects rather than their
         # bound methods: CPython 3.11 specialises ``obj.method()`` calls, not calls of a bound
@@ -215,6 +220,11 @@ class ControlCycle:
     def samples(self) -> int:
         """Telemetry samples answered so far (each with one Drive frame)."""
         return self.timing.count
+
+    @property
+    def state(self) -> State:
+        """The supervisor state, as the last transition applied here left it."""
+        return self._state
 
     # ------------------------------------------------------------------ port
 
@@ -239,14 +249,22 @@ class ControlCycle:
         self.link = None
         self.telemetry_flowing = False
 
+    def set_pacing(self, pacing: Pacing) -> None:
+        """The pacing settled at the handshake (real time until one is)."""
+        self.pacing = pacing
+        budget_us = pacing.overrun_budget_us
+        # An int: compared with int nanoseconds every sample. Lockstep: nothing overruns.
+        self._overrun_budget_ns = round(budget_us * 1000.0) if math.isfinite(budget_us) else 1 << 62
+        self._lockstep_bit = pacing.telemetry_status_bit
+
     # ------------------------------------------------------------------ the hot path
 
     def on_readable(self) -> None:
         """The hot path: read, decode, answer the newest telemetry sample with one Drive frame.
 
         Written for speed, as it runs every sample: one method from read to record, the
-        telemetry unpacked once, each attribute read once, the balance case dispatched inline,
-        the objects it calls one attribute away, the stage timings kept as one tuple of clock
+        telemetry unpacked once, each attribute read once, the balance case inline, the
+        objects it calls one attribute away, the stage timings kept as one tuple of clock
         readings. The Drive frame's own seq is the count of samples answered (mod 2**16).
         """
         try:
@@ -260,13 +278,16 @@ class ControlCycle:
         if not data:
             self._on_link_lost("the rig port reached end of file (device gone)")
             return
+        timing = self.timing
+        answered = timing.count
+        staged = not answered & STAGE_SAMPLE_MASK  # this sample's stages are timed
         messages = self._decoder.feed(data)
-        t1 = _clock_ns()
+        t1 = _clock_ns() if staged else 0
         tm = None
         for message in messages:
             if message.__class__ is Telemetry:
                 if tm is not None:
-                    self._skip(tm)
+                    self._skip(tm, t0)
                 tm = message
             else:
                 self._on_message(message)
@@ -275,72 +296,62 @@ class ControlCycle:
 
         (seq, t_us, cart_counts, pendulum_counts, switches, faults, status, applied,
          _motor_current_a, supply_v, _late_commands) = tm
+        if status & _LOCKSTEP != self._lockstep_bit:
+            self._pacing_broken(status)
         if t_us < self._last_t_us:  # the device restarted its clock (reset): keep time monotonic
             self._epoch_us += self._last_t_us + self._period_us
         self._last_t_us = t_us
         self.t_s = t_s = (t_us + self._epoch_us) * 1e-6
         self.last_telemetry = tm
         self.last_rx_ns = t0
+        estimator = self._estimator
         if not self.telemetry_flowing:
             self.telemetry_flowing = True
+            estimator.reset(cart_counts, pendulum_counts)  # no rate from before the (re)connect
             self._on_telemetry_resumed()
-        x, v, th, w = measured = self._estimator.update(cart_counts, pendulum_counts, self._prev_applied)
-        self._prev_applied = applied
-        self.measured = measured
-        t2 = _clock_ns()
-
-        m = self.machine
-        output = m.output
-        if output is _CONTROL:
-            state = m.state
-            # The common case, inline: balancing and not fallen (CatchWindow.has_fallen, inline).
-            if state is _BALANCE and abs(th) <= self._fall_angle_rad:
-                balance = self._balance
-                balance.set_point_m = m.setpoint_m
-                drive = balance.update(x, v, th, w)
-            else:
-                drive = self._control(state, t_s, x, v, th, w, switches)
-        elif output is _RAMP:
-            drive = self.follower.update(m.ramp.velocity_setpoint(t_s), x, v, th, w)
-        else:
-            drive = 0.0
-        requested = drive
-        t3 = _clock_ns()
-
-        trip = self.supervisor.on_sample(
-            t_s, x, v, th, w, drive, switches, faults & self.fault_mask, supply_v
-        )
         stats = self._stats
         # Every corrupt chunk also counts as a resync (LinkStats; protocol/vectors.json checks it).
         if stats.gaps != self._seen_gaps or stats.resyncs != self._seen_resyncs:
-            self._link_errors_counted(t_s, stats)
-        if m.state is not self._state or m.output is not self._output:
-            self.sync()
-            if m.output is _OFF:
-                drive = 0.0
-            elif m.output is _RAMP:
-                drive = self.follower.update(m.ramp.velocity_setpoint(t_s), x, v, th, w)
+            self._link_errors_counted(t_s, stats)  # a trip here stops the rig in this frame
+        x, v, th, w = measured = estimator.update(cart_counts, pendulum_counts, self._prev_applied)
+        self._prev_applied = applied
+        self.measured = measured
+        t2 = _clock_ns() if staged else 0
+
+        state = self._state
+        if state is _BALANCE and abs(th) <= self._fall_angle_rad:  # ModeWatch's common case
+            seen = None
+        else:
+            seen = self.modes.observe(state, t_s, estimator.scaling.raw_x_m(), v, th, w, switches)
+        output, state, setpoint_m, ramp_v, transition, trip = self.supervisor.on_sample(
+            t_s, x, estimator.raw_v_mps, th, estimator.raw_omega_radps, applied, switches,
+            faults & self.fault_mask, supply_v, seen,
+        )
+        if transition is not None:
+            self.apply(transition)
+        if output is _CONTROL:
+            if state is _BALANCE:
+                balance = self._balance
+                balance.set_point_m = setpoint_m
+                drive = balance.update(x, v, th, w)
+            else:
+                drive = self._control(state, setpoint_m, t_s, x, v, th, w)
+        elif output is _RAMP:
+            drive = self.follower.update(ramp_v, x, v, th, w)
+        else:
+            drive = 0.0
+        t3 = _clock_ns() if staged else 0
+        requested = drive
         if not abs(drive) < self.limit:  # clamp; a NaN from a controller becomes 0
             limit = self.limit
             drive = limit if drive >= limit else -limit if drive <= -limit else 0.0
-        t4 = _clock_ns()
+        t4 = _clock_ns() if staged else 0
 
-        timing = self.timing
-        answered = timing.count
         frame = encode_drive(answered & 0xFFFF, drive, seq)
-        t5 = _clock_ns()
-        try:
-            _write(self.fd, frame)
-        except BlockingIOError:
-            self.link.tx_bytes_dropped += len(frame)
-        except OSError as exc:
-            self._on_link_lost(f"writing the rig port failed: {exc.strerror or exc}")
+        t5 = _clock_ns() if staged else 0
+        t_write = self.link.write(frame)  # the clock reading right after the write
+        if not t_write:
             return
-        t_write = _clock_ns()
-        size = len(frame)
-        stats.frames_tx += 1
-        stats.bytes_tx += size
-        stats.tx_frames.append((t_write, frame[:-1], size - 1))
         self.last_drive = drive
 
         self._stamps[answered & RING_MASK] = (t0, t1, t2, t3, t4, t5, t_write)
@@ -349,28 +360,47 @@ class ControlCycle:
         self.put_sample((
             seq, t_us, t0, cart_counts, pendulum_counts, switches, faults,
             x, v, th, w, requested, drive, self._mode_code, latency_ns * 1e-3,
-            m.setpoint_m, applied,
+            setpoint_m, applied,
         ))
         if trip is not None:
             self._on_trip(trip, t_s)
-        if latency_ns > self._overrun_budget_ns and not status & _LOCKSTEP:
-            overrun = self.monitor.note_cycle(t_s, latency_ns * 1e-3)
-            if overrun is not None:
-                self.supervisor.trip(overrun, t_s)
-                self._on_trip(overrun, t_s)
-                self.sync()
-        if t_s >= self._next_wake_s:
-            self._wake_time_waiters(t_s)
+        if latency_ns > self._overrun_budget_ns:
+            self._overran(t_s, latency_ns)
+        if t_s >= self.waiters.next_due_s:
+            self.waiters.reached(t_s)
 
-    def _skip(self, tm: Telemetry) -> None:
-        """An older sample overtaken by a newer one in the same read: estimate through it, no answer.
+    def _skip(self, tm: Telemetry, t0: int) -> None:
+        """An older sample overtaken by a newer one in the same read: estimate through it, record
+        it unanswered (no drive, no latency), count it.
 
         The estimator's rates assume one sample period per update, so skipping its update would
         scale the velocity estimates of the answered sample by the number of periods missed.
         """
         self.missed += 1
-        self._estimator.update(tm.cart_counts, tm.pendulum_counts, self._prev_applied)
+        x, v, th, w = self._estimator.update(tm.cart_counts, tm.pendulum_counts, self._prev_applied)
         self._prev_applied = tm.drive_applied
+        self.put_sample((
+            tm.seq, tm.t_us, t0, tm.cart_counts, tm.pendulum_counts, tm.switches, tm.faults,
+            x, v, th, w, None, None, self._mode_code, None, None, tm.drive_applied,
+        ))
+
+    def _control(
+        self, state: State, setpoint_m: float, t_s: float, x: float, v: float, th: float, w: float
+    ) -> float:
+        """The controller of the decision's state (balance is handled inline by the caller)."""
+        if state is _SWING_UP:
+            return self.controls.swing_up.update(x, v, th, w)
+        hold = self.hold
+        if state is _READY:
+            hold.set_point_m = setpoint_m
+            return hold.update(x, v, th, w)
+        if state is _HOMING:
+            return self.homing.command(self._estimator.scaling.raw_x_m(), v, th, w)
+        if state is _EXCITE:
+            modes = self.modes
+            hold.set_point_m = setpoint_m
+            return hold.update(x, v, th, w) + modes.excitation.value(t_s - modes.excite_start_s)
+        return 0.0
 
     def _link_errors_counted(self, t_s: float, stats: LinkStats) -> None:
         """Feed new sequence gaps and corrupt frames to the link-error interlock."""
@@ -380,106 +410,73 @@ class ControlCycle:
         if gaps != self._seen_gaps or corrupt != self._seen_corrupt:
             self._seen_gaps = gaps
             self._seen_corrupt = corrupt
-            rate_trip = self.monitor.note_counters(t_s, gaps, corrupt)
-            if rate_trip is not None:
-                self.supervisor.trip(rate_trip, t_s)
-                self._on_trip(rate_trip, t_s)
+            self._tripped(self.monitor.note_counters(t_s, gaps, corrupt), t_s)
 
-    def _control(
-        self, state: State, t_s: float, x: float, v: float, th: float, w: float, switches: int
-    ) -> float:
-        """The active mode's command for this sample (catch/fall/homing-end decided first)."""
-        if state is _BALANCE:
-            if self.controls.window.has_fallen(th):
-                self.supervisor.notify(
-                    Event.FALL, "control", t_s, cause=f"pendulum at {math.degrees(th):+.1f} deg"
-                )
-                self.sync()
-                return self.follower.update(self.machine.ramp.velocity_setpoint(t_s), x, v, th, w)
-            balance = self.controls.balance
-            balance.set_point_m = self.machine.setpoint_m
-            return balance.update(x, v, th, w)
-        if state is _SWING_UP:
-            if self.controls.window.can_catch(th, w):
-                self.supervisor.notify(
-                    Event.CAUGHT, "control", t_s,
-                    cause=f"pendulum at {math.degrees(th):+.1f} deg, {math.degrees(w):+.0f} deg/s",
-                )
-                self.sync()
-                return self.controls.balance.update(x, v, th, w)
-            return self.controls.swing_up.update(x, v, th, w)
-        if state is _READY:
-            hold = self.hold
-            hold.set_point_m = self.machine.setpoint_m
-            return hold.update(x, v, th, w)
-        if state is _HOMING:
-            return self._home(t_s, v, th, w, switches)
-        if state is _EXCITE:
-            return self._excite(t_s, x, v, th, w)
-        return 0.0
+    def _overran(self, t_s: float, latency_ns: int) -> None:
+        self._tripped(self.monitor.note_cycle(t_s, latency_ns * 1e-3), t_s)
 
-    def _home(self, t_s: float, v: float, th: float, w: float, switches: int) -> float:
-        homing = self.homing
-        estimator = self.controls.estimator
-        drive = homing.update(estimator.scaling.raw_x_m(), v, th, w, switches)
-        if homing.phase is HomingPhase.DONE:
-            estimator.scaling.set_centre_at(homing.centre_raw_m)
-            tm = self.last_telemetry
-            self.measured = estimator.reset(tm.cart_counts, tm.pendulum_counts, v, w)
-            self.supervisor.notify(Event.HOMING_DONE, "control", t_s, cause=homing.message)
-            self.sync()
-            return 0.0
-        if homing.phase is HomingPhase.FAILED:
-            self.supervisor.notify(Event.HOMING_FAILED, "control", t_s, cause=homing.message)
-            self.sync()
-            return 0.0
-        return drive
+    def _pacing_broken(self, status: int) -> None:
+        """A Telemetry whose ST_LOCKSTEP bit disagrees with the pacing the device declared."""
+        said = "sets" if status & _LOCKSTEP else "lacks"
+        trip = Trip(
+            "link.protocol",
+            Action.DRIVE_OFF,
+            f"a Telemetry {said} ST_LOCKSTEP, but the device declared {self.pacing.name} pacing "
+            "at the handshake (PROTOCOL.md section 8.4)",
+            {"status": float(status)},
+        )
+        self._tripped(trip, self.t_s)
 
-    def _excite(self, t_s: float, x: float, v: float, th: float, w: float) -> float:
-        excitation = self.excitation
-        elapsed_s = t_s - self.excite_start_s
-        if excitation is None or excitation.done(elapsed_s):
-            self.supervisor.notify(Event.EXCITE_DONE, "control", t_s, cause="excitation finished")
-            self.sync()
-            return self.hold.update(x, v, th, w)
-        self.hold.set_point_m = self.machine.setpoint_m
-        return self.hold.update(x, v, th, w) + excitation.value(elapsed_s)
+    def _tripped(self, trip: Trip | None, t_s: float) -> None:
+        """A trip found by the cycle outside the decision: latch, record, apply."""
+        if trip is None:
+            return
+        transition = self.supervisor.trip(trip, t_s)
+        self._on_trip(trip, t_s)
+        self.apply(transition)
 
-    # ------------------------------------------------------------------ between samples
+    # ------------------------------------------------------------------ transitions
 
-    def sync(self) -> None:
-        """Act on a change of supervisor state or output: reset controllers, arm or stop the device."""
-        m = self.machine
-        new_state, old_state = m.state, self._state
-        self._output = m.output
-        if new_state is not old_state:
-            self._state = new_state
-            self._mode_code = int(new_state)
-            self._enter(new_state)
-            if new_state in MOTION_STATES and old_state not in MOTION_STATES:
+    def apply(self, transition: Transition | None) -> None:
+        """The one handler of transitions: controllers, origin, device, gc, waiters."""
+        if transition is None:
+            return
+        if transition.state_changed:
+            old, new = transition.previous, transition.state
+            self._state = new
+            self._mode_code = int(new)
+            if old is _HOMING and self.homing.phase is HomingPhase.DONE:
+                self._take_homed_origin()
+            self._enter(new, transition)
+            if new in MOTION_STATES and old not in MOTION_STATES:
                 gc.disable()
-            elif new_state not in MOTION_STATES and old_state in MOTION_STATES:
+            elif new not in MOTION_STATES and old in MOTION_STATES:
                 gc.enable()
             if self.on_state_change is not None:
-                self.on_state_change(old_state, new_state)
-            self._wake_state_waiters(new_state)
-        self._command_device(m.output is not _OFF)
+                self.on_state_change(old, new)
+            self.waiters.entered(new)
+        self._command_device(transition.drive_allowed)
 
-    def _enter(self, state: State) -> None:
+    def _take_homed_origin(self) -> None:
+        """Homing found the centre: positions from now on are measured from it."""
+        estimator = self._estimator
+        estimator.scaling.set_centre_at(self.homing.centre_raw_m)
+        tm = self.last_telemetry
+        _x, v, _th, w = self.measured
+        self.measured = estimator.reset(tm.cart_counts, tm.pendulum_counts, v, w)
+
+    def _enter(self, state: State, transition: Transition) -> None:
+        """Start the newly active controller from the last measured state and drive (bumpless)."""
         measured, last = self.measured, self.last_drive
         controls = self.controls
         if state is _HOMING:
-            self.homing.start(controls.estimator.scaling.raw_x_m())
+            self.homing.start(self._estimator.scaling.raw_x_m())
         elif state is _SWING_UP:
             controls.swing_up.reset(measured, last)
         elif state is _BALANCE:
             controls.balance.reset(measured, last)
-        elif state is _EXCITE:
-            args = self.machine.excite_args
-            self.excitation = Excitation(
-                str(args["kind"]), float(args["amplitude"]), float(args["duration_s"])
-            )
-            self.excite_start_s = self.t_s
+        elif state is _EXCITE and transition.excitation is not None:
+            self.modes.start_excitation(*transition.excitation, self.t_s)
 
     def _command_device(self, drive_allowed: bool) -> None:
         link = self.link
@@ -495,53 +492,12 @@ class ControlCycle:
         problem = _refusal(future, "Arm")
         if problem is not None and self.device_armed:
             self.device_armed = False
-            trip = Trip("device.arm_refused", Action.DRIVE_OFF, problem, {})
-            self.supervisor.trip(trip, self.t_s)
-            self._on_trip(trip, self.t_s)
-            self.sync()
+            self._tripped(Trip("device.arm_refused", Action.DRIVE_OFF, problem, {}), self.t_s)
 
     def _stop_answered(self, future: asyncio.Future) -> None:
         problem = _refusal(future, "Stop")
         if problem is not None:
-            self.supervisor.machine.record(self.t_s, "fault", "link", problem)
-
-    # ------------------------------------------------------------------ waiting for the rig
-
-    def wait_for_state(self, states: set[State]) -> asyncio.Future[State]:
-        """A future that completes with the state once the supervisor enters one of ``states``."""
-        future: asyncio.Future[State] = asyncio.get_running_loop().create_future()
-        if self.machine.state in states:
-            future.set_result(self.machine.state)
-        else:
-            self._state_waiters.append((frozenset(states), future))
-        return future
-
-    def wait_until(self, t_s: float) -> asyncio.Future[float]:
-        """A future that completes at the first sample at or after device time ``t_s``."""
-        future: asyncio.Future[float] = asyncio.get_running_loop().create_future()
-        self._waiter_order += 1
-        heapq.heappush(self._time_waiters, (t_s, self._waiter_order, future))
-        self._next_wake_s = self._time_waiters[0][0]
-        return future
-
-    def _wake_state_waiters(self, state: State) -> None:
-        keep = []
-        for states, future in self._state_waiters:
-            if future.done():
-                continue
-            if state in states:
-                future.set_result(state)
-            else:
-                keep.append((states, future))
-        self._state_waiters = keep
-
-    def _wake_time_waiters(self, t_s: float) -> None:
-        waiters = self._time_waiters
-        while waiters and waiters[0][0] <= t_s:
-            _, _, future = heapq.heappop(waiters)
-            if not future.done():
-                future.set_result(t_s)
-        self._next_wake_s = waiters[0][0] if waiters else math.inf
+            self.supervisor.log(self.t_s, "fault", "link", problem)
 
 
 def _refusal(future: asyncio.Future, what: str) -> str | None:

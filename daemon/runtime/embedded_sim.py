@@ -17,7 +17,6 @@ from sim_device.faults import FaultPlan
 from sim_device.rig import SimulatedRig
 from sim_device.transports import PtyTransport
 
-
 #: Encoder noise of the built-in rig, counts rms on top of quantisation: a real encoder's edges
 #: jitter with vibration and its counts with electrical noise, and this is what the estimator's
 #: published figures assume (daemon/control/estimation.py). It makes ``--seed`` matter.

@@ -28,8 +28,8 @@ import gc
 import logging
 import math
 import signal
-import time
 import sys
+import time
 from pathlib import Path
 
 from daemon.api.paths import control_socket_path
@@ -43,6 +43,7 @@ from daemon.link import Link, LinkDown, Port, open_port
 from daemon.recording import Recorder, RecordingError, RunMetadata
 from daemon.runtime.cycle import ControlCycle
 from daemon.runtime.embedded_sim import SimOptions, start_embedded_rig
+from daemon.runtime.pacing import PacingRefused, pacing_for
 from daemon.runtime.timing import LagRing, TimingDigest
 from daemon.runtime.watchdog import run_watchdog
 from daemon.supervisor import Action, Event, State, Supervisor, Trip, state_code_table
@@ -169,7 +170,7 @@ class PoiseService:
         )
         try:
             async with asyncio.timeout(FIRST_TELEMETRY_TIMEOUT_S):
-                await self.cycle.wait_for_state(set(State) - {State.DISCONNECTED})
+                await self.cycle.waiters.wait_for_state(set(State) - {State.DISCONNECTED})
                 await self.rate_known.wait()
         except TimeoutError:
             await self._release()
@@ -213,15 +214,25 @@ class PoiseService:
             raise
 
     async def _handshake(self, link: Link) -> None:
+        """Identify, settle the pacing and the config check from the hello, then configure."""
         sampling = self.config.sampling
         self.handshaking = True
         try:
-            self.hello = await link.handshake(sampling.rate_hz, sampling.device_watchdog_ms)
+            self.hello = hello = await link.identify()
+            try:
+                pacing = pacing_for(hello, self.supervisor.limits)
+            except PacingRefused as refused:
+                raise LinkDown(f"refusing the rig: {refused}") from None
+            self.cycle.set_pacing(pacing)
+            self.supervisor.config_problems = config_mismatches(self.config, hello)
+            for problem in self.supervisor.config_problems:
+                log.warning("rig and config disagree: %s", problem)
+            await link.configure(sampling.rate_hz, sampling.device_watchdog_ms)
         finally:
             self.handshaking = False
-        self.supervisor.config_problems = config_mismatches(self.config, self.hello)
-        for problem in self.supervisor.config_problems:
-            log.warning("rig and config disagree: %s", problem)
+        log.info(
+            "rig paced by %s", "the host's answers (lockstep)" if pacing.lockstep else "its own clock"
+        )
 
     def request_shutdown(self) -> None:
         if self._shutdown_requested is not None:
@@ -252,7 +263,7 @@ class PoiseService:
         if machine.state in MOTION_STATES or machine.ramp is not None:
             with contextlib.suppress(TimeoutError):
                 async with asyncio.timeout(STOP_WAIT_S):
-                    await self.cycle.wait_for_state(set(State) - MOTION_STATES)
+                    await self.cycle.waiters.wait_for_state(set(State) - MOTION_STATES)
 
     async def close(self, outcome: str = "completed") -> None:
         """Controlled stop, drive off, recording closed, port and API closed."""
@@ -356,10 +367,10 @@ class PoiseService:
         faults_to_clear = 0
         if command == "reset" and self.cycle.last_telemetry is not None:
             faults_to_clear = self.cycle.last_telemetry.faults
-        result = self.supervisor.execute(command, args, source)
+        result, transition = self.supervisor.execute(command, args, source)
         if command == "reset" and self.link is not None:
             self._clear_device_faults(faults_to_clear)
-        self.cycle.sync()
+        self.cycle.apply(transition)
         return result
 
     def _clear_device_faults(self, faults: int) -> None:
@@ -489,27 +500,29 @@ class PoiseService:
         if self.link is not None:
             stats = self.link.stats
             data["rx_frames"] = [chunk.hex(" ") for _, chunk, _ in list(stats.rx_frames)[-TRIP_FRAMES_KEPT:]]
-            data["tx_frames"] = [chunk.hex(" ") for _, chunk, _ in list(stats.tx_frames)[-TRIP_FRAMES_KEPT:]]
+            data["tx_frames"] = [frame[:-1].hex(" ") for _, frame, _ in list(stats.tx_frames)[-TRIP_FRAMES_KEPT:]]
         self.recorder.put_event("interlock.trip", "interlock", data)
 
     def _trip(self, trip: Trip) -> None:
         """A trip found outside the per-sample check: latch it, record it, act on it now."""
         t_s = self.cycle.t_s
-        self.supervisor.trip(trip, t_s)
+        transition = self.supervisor.trip(trip, t_s)
         self._record_trip(trip, t_s)
-        self.cycle.sync()
+        self.cycle.apply(transition)
+
+    def _notify(self, event: Event, cause: str) -> None:
+        """A link event: to the supervisor, and what it changed to the cycle's transition handler."""
+        self.cycle.apply(self.supervisor.notify(event, "link", self.cycle.t_s, cause=cause))
 
     def _watchdog_trip(self, trip: Trip) -> None:
         self._trip(trip)
         if trip.name == "link.timeout":
             self.cycle.telemetry_flowing = False
-            self.supervisor.notify(Event.LINK_DOWN, "link", self.cycle.t_s, cause=trip.reason)
-            self.cycle.sync()
+            self._notify(Event.LINK_DOWN, trip.reason)
 
     def _telemetry_resumed(self) -> None:
         if not self.supervisor.machine.link_up:
-            self.supervisor.notify(Event.LINK_UP, "link", self.cycle.t_s, cause="telemetry flowing")
-            self.cycle.sync()
+            self._notify(Event.LINK_UP, "telemetry flowing")
 
     def _expecting_telemetry(self) -> bool:
         return self.link is not None and not self.handshaking and not self.closing
@@ -552,8 +565,7 @@ class PoiseService:
             self.port.close()
         self.port = self.link = None
         self._trip(Trip("link.lost", Action.DRIVE_OFF, reason, {}))
-        self.supervisor.notify(Event.LINK_DOWN, "link", self.cycle.t_s, cause=reason)
-        self.cycle.sync()
+        self._notify(Event.LINK_DOWN, reason)
         if not self.closing:
             self._reconnect_task = asyncio.create_task(self._reconnect(), name="poise-reconnect")
 

@@ -102,7 +102,7 @@ async def run_session(
         # the seed and its clock only) then gives the same run every time, however long the
         # daemon's start took by the wall clock. A rig up for longer starts on its next second.
         start_s = max(SESSION_START_S, math.floor(cycle.t_s) + 1.0)
-        await _first(cycle.wait_until(start_s), None, start_s - cycle.t_s, "start")
+        await _first(cycle.waiters.wait_until(start_s), None, start_s - cycle.t_s, "start")
         await _command(service, "home")
         await _wait_state(service, {State.IDLE} | _LATCHED, HOMING_TIMEOUT_S, "homing")
         if not service.supervisor.machine.homed:
@@ -118,8 +118,8 @@ async def run_session(
         t_balance = cycle.t_s
         result.swing_up_s = _span_s(t_swing, t_balance)
         prompts = [_disturb(service, t_balance, d) for d in disturbances]
-        left = cycle.wait_for_state(set(State) - {State.BALANCE})
-        end = cycle.wait_until(t_balance + duration_s)
+        left = cycle.waiters.wait_for_state(set(State) - {State.BALANCE})
+        end = cycle.waiters.wait_until(t_balance + duration_s)
         await _first(left, end, duration_s, "balance")
         result.balance_s = _span_s(t_balance, cycle.t_s)
         if left.done():
@@ -168,7 +168,7 @@ def _disturb(service: PoiseService, t_balance: float, disturbance: Disturbance) 
         service.record_event("disturbance.scheduled", "session", data)
 
     async def prompt() -> None:
-        await service.cycle.wait_until(at_s)
+        await service.cycle.waiters.wait_until(at_s)
         if rig is None:
             print(
                 f"poise session: disturb now: a tap on the pendulum of about "
@@ -208,15 +208,15 @@ async def swing_up_when_still(service: PoiseService) -> None:
             retryable = "pendulum.hanging_still" in refused.reason or "link.rate" in refused.reason
             if cycle.t_s >= deadline or not retryable:
                 raise _Stopped("refused", f"swing_up refused: {refused.reason}") from None
-        await _first(cycle.wait_until(cycle.t_s + SETTLE_POLL_S), None, SETTLE_POLL_S, "settling")
+        await _first(cycle.waiters.wait_until(cycle.t_s + SETTLE_POLL_S), None, SETTLE_POLL_S, "settling")
 
 
 async def _wait_state(
     service: PoiseService, states: set[State], device_timeout_s: float, what: str
 ) -> State:
     cycle = service.cycle
-    reached = cycle.wait_for_state(states)
-    deadline = cycle.wait_until(cycle.t_s + device_timeout_s)
+    reached = cycle.waiters.wait_for_state(states)
+    deadline = cycle.waiters.wait_until(cycle.t_s + device_timeout_s)
     await _first(reached, deadline, device_timeout_s, what)
     if not reached.done():
         raise _Stopped("timeout", f"{what} took longer than {device_timeout_s:g} s of rig time")
@@ -248,7 +248,9 @@ def summarise_run(db_path: str, result: SessionResult) -> dict:
         balance_code = int(State.BALANCE)
         for chunk in sample_chunks(conn, run):
             for row in chunk:
-                latencies.append(row[_COL["latency_us"]])
+                latency_us = row[_COL["latency_us"]]
+                if latency_us is not None:  # None: a sample overtaken in its read, not answered
+                    latencies.append(latency_us)
                 if row[_COL["mode"]] == balance_code:
                     theta, x = row[_COL["theta_rad"]], row[_COL["x_m"]]
                     theta_sq += theta * theta

@@ -27,6 +27,10 @@ import numpy as np
 
 RING_SAMPLES = 4096  # a power of two, so the cycle can index the ring with ``count & RING_MASK``
 RING_MASK = RING_SAMPLES - 1
+#: The stages are timed on the samples whose count has these bits clear: one in 16, unrelated to
+#: their cost, so the stage figures are those of every sample (from fewer of them). Latency, from
+#: the first and last readings, is taken every sample.
+STAGE_SAMPLE_MASK = 15
 STAGES = ("decode", "estimate", "control", "interlocks", "encode", "write")
 #: Clock readings per sample: before the first stage and after each stage.
 READINGS = len(STAGES) + 1
@@ -72,7 +76,8 @@ class TimingRings:
 
     The cycle stores ``stamps[count & RING_MASK] = (t_0, ..., t_6)`` (``READINGS`` monotonic
     nanosecond readings: frame received, then the end of each stage in ``STAGES``; the last one
-    is the command written) and then increments ``count``.
+    is the command written) and then increments ``count``. On samples whose stages were not
+    timed (see ``STAGE_SAMPLE_MASK``) the readings between the first and the last are 0.
     """
 
     __slots__ = ("_mirror", "_mirrored", "count", "stamps")
@@ -103,8 +108,9 @@ class TimingRings:
         rows = self._catch_up()
         readings = self._mirror[:rows]
         latency = np.sort(readings[:, -1] - readings[:, 0]) / 1000.0
-        compute = np.sort(readings[:, _COMPUTE_END] - readings[:, 0]) / 1000.0
-        stages = np.sort(np.diff(readings, axis=1), axis=0) / 1000.0
+        staged = readings[readings[:, 1] != 0]
+        compute = np.sort(staged[:, _COMPUTE_END] - staged[:, 0]) / 1000.0
+        stages = np.sort(np.diff(staged, axis=1), axis=0) / 1000.0
         reads = np.sort(readings[:, 0])
         return TimingDigest(
             samples=rows,
@@ -154,8 +160,7 @@ class LagRing:
         late_s = max(0.0, late_s)
         self._values[self._count % self.SIZE] = late_s
         self._count += 1
-        if late_s > self.worst_s:
-            self.worst_s = late_s
+        self.worst_s = max(self.worst_s, late_s)
 
     def figures_ms(self) -> dict[str, float]:
         """p50, p99 and max of the recent ticks' lateness, and the worst since start, in ms."""

@@ -5,15 +5,15 @@ each tick runs is the event loop's lag, kept in a :class:`LagRing` for status,
 the dashboard and the recording. Two things trip it while telemetry is
 expected:
 
-- ``link.timeout``: no telemetry for ``interlocks.link_timeout_ms``
-  (:func:`daemon.supervisor.link_timeout_trip`). A rig in lockstep
-  (Telemetry status bit ST_LOCKSTEP) samples only when the host answers, so
-  there silence is judged against at least LOCKSTEP_SILENCE_S of wall-clock time.
-  Silence is never judged on a tick that itself ran late: telemetry that came
-  meanwhile may still be waiting, unread, behind it.
-- ``loop.stall``: the watchdog itself ran more than ``interlocks.loop_stall_ms``
-  late, which means the event loop, and with it the control cycle, was
-  blocked that long.
+- ``link.timeout``: no telemetry for the pacing's silence limit
+  (:func:`daemon.supervisor.link_timeout_trip`): ``interlocks.link_timeout_ms``
+  for a rig on its own clock, a longer wall-clock backstop for a lockstep rig,
+  which samples only when the host answers (:mod:`daemon.runtime.pacing`,
+  settled at the handshake). Silence is never judged on a tick that itself ran
+  late: telemetry that came meanwhile may still be waiting, unread, behind it.
+- ``loop.stall``: the watchdog itself ran later than the pacing's stall limit
+  (``interlocks.loop_stall_ms``; none in lockstep), which means the event
+  loop, and with it the control cycle, was blocked that long.
 
 The device's own watchdog is the backstop for a host that cannot run at all.
 Each tick also reports the measured telemetry rate and the device watchdog bit
@@ -25,14 +25,12 @@ from __future__ import annotations
 import asyncio
 import time
 from collections.abc import Callable
-from dataclasses import replace
 
 from daemon.runtime.cycle import ControlCycle
 from daemon.runtime.timing import LagRing
-from daemon.supervisor import Action, InterlockLimits, Supervisor, Trip, link_timeout_trip
-from protocol import ST_LOCKSTEP, ST_WATCHDOG_ACTIVE
+from daemon.supervisor import Action, Supervisor, Trip, link_timeout_trip
+from protocol import ST_WATCHDOG_ACTIVE
 
-LOCKSTEP_SILENCE_S = 2.0
 RATE_WINDOW_S = 0.1
 MAX_TICK_S = 0.01  # the lag is sampled at least this often
 
@@ -61,16 +59,15 @@ async def run_watchdog(
         lag.note(late_s)
         if not expecting() or not cycle.telemetry_flowing:
             continue
-        tm = cycle.last_telemetry
-        lockstep = tm is not None and tm.status & ST_LOCKSTEP
-        if late_s > limits.loop_stall_s and not lockstep:
+        pacing = cycle.pacing
+        if late_s > pacing.stall_limit_s:
             on_trip(
                 Trip(
                     "loop.stall",
                     Action.DRIVE_OFF,
                     f"the host event loop was blocked for {late_s * 1000:.1f} ms "
-                    f"(interlocks.loop_stall_ms = {limits.loop_stall_s * 1000:g})",
-                    {"blocked_s": late_s, "limit_s": limits.loop_stall_s},
+                    f"(interlocks.loop_stall_ms = {pacing.stall_limit_s * 1000:g})",
+                    {"blocked_s": late_s, "limit_s": pacing.stall_limit_s},
                 )
             )
             continue
@@ -78,11 +75,8 @@ async def run_watchdog(
             # This tick ran late: telemetry that arrived meanwhile may still wait unread behind
             # it. Judge the silence on the next tick, once the cycle's reader has had its turn.
             continue
-        silent_limit = limits
-        if lockstep and limits.link_timeout_s < LOCKSTEP_SILENCE_S:
-            silent_limit = _with_timeout(limits, LOCKSTEP_SILENCE_S)
         last_rx_s = cycle.last_rx_ns * 1e-9
-        trip = link_timeout_trip(time.monotonic(), last_rx_s, silent_limit)
+        trip = link_timeout_trip(time.monotonic(), last_rx_s, pacing.silence_limit_s, limits)
         if trip is not None:
             on_trip(trip)
             continue
@@ -90,9 +84,6 @@ async def run_watchdog(
             count = cycle.samples + cycle.missed
             rate_hz = (count - rate_samples) / (cycle.t_s - rate_t_s)
             rate_samples, rate_t_s, rate_wall_s = count, cycle.t_s, now
+            tm = cycle.last_telemetry
             supervisor.note_link(rate_hz, bool(tm is not None and tm.status & ST_WATCHDOG_ACTIVE))
             rate_known.set()
-
-
-def _with_timeout(limits: InterlockLimits, timeout_s: float) -> InterlockLimits:
-    return replace(limits, link_timeout_s=timeout_s)

@@ -1,5 +1,6 @@
 """The supervisor: state machine, interlocks, pre-arm checks and stops of one rig (no I/O)."""
 
+from daemon.supervisor.decision import Decision, Output, Transition
 from daemon.supervisor.interlocks import (
     Action,
     Checks,
@@ -10,7 +11,7 @@ from daemon.supervisor.interlocks import (
     link_timeout_trip,
     stopping_distance_m,
 )
-from daemon.supervisor.machine import Fault, LogEntry, Output, StateMachine
+from daemon.supervisor.machine import Fault, LogEntry, StateMachine
 from daemon.supervisor.prechecks import CheckFailure, Health, prearm_failures
 from daemon.supervisor.states import TRANSITIONS, Command, Event, State, state_code_table
 from daemon.supervisor.stop_ramp import StopRamp
@@ -23,6 +24,7 @@ __all__ = [
     "CheckFailure",
     "Checks",
     "Command",
+    "Decision",
     "Event",
     "Fault",
     "Health",
@@ -35,6 +37,7 @@ __all__ = [
     "StateMachine",
     "StopRamp",
     "Supervisor",
+    "Transition",
     "Trip",
     "link_timeout_trip",
     "prearm_failures",

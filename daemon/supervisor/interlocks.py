@@ -354,16 +354,18 @@ def _fault_flag_trip(faults: int) -> Trip:
     raise ValueError(f"no trip fault bit set in faults=0x{faults:04x}")
 
 
-def link_timeout_trip(now_s: float, last_rx_s: float, limits: InterlockLimits) -> Trip | None:
-    """Trip when no telemetry has arrived for ``interlocks.link_timeout_ms``."""
+def link_timeout_trip(
+    now_s: float, last_rx_s: float, limit_s: float, limits: InterlockLimits
+) -> Trip | None:
+    """Trip when no telemetry has arrived for ``limit_s`` (the pacing's silence limit)."""
     silent_s = now_s - last_rx_s
-    if silent_s <= limits.link_timeout_s:
+    if silent_s <= limit_s:
         return None
     return Trip(
         "link.timeout",
         Action.DRIVE_OFF,
         f"no telemetry for {silent_s * 1000:.1f} ms ({silent_s / limits.sample_period_s:.1f} sample periods)",
-        {"silent_s": silent_s, "limit_s": limits.link_timeout_s},
+        {"silent_s": silent_s, "limit_s": limit_s},
     )
 
 

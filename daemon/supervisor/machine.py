@@ -32,10 +32,10 @@ import math
 from collections import Counter, deque
 from collections.abc import Callable
 from dataclasses import dataclass, field
-from enum import IntEnum
 from typing import TYPE_CHECKING
 
 from daemon.errors import CommandRefused
+from daemon.supervisor.decision import Output
 from daemon.supervisor.interlocks import Action, Trip, soft_limit_m
 from daemon.supervisor.states import (
     LATCHED_STATES,
@@ -56,12 +56,6 @@ log = logging.getLogger("poise.supervisor")
 EVENT_HISTORY = 20
 EXCITE_KINDS = ("chirp", "prbs", "step")
 MAX_EXCITE_DURATION_S = 600.0
-
-
-class Output(IntEnum):
-    OFF = 0
-    CONTROL = 1
-    RAMP = 2
 
 
 @dataclass(frozen=True, slots=True)

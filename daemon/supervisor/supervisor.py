@@ -1,13 +1,15 @@
 """The supervisor of one rig: operator commands, per-sample interlocks, status snapshots.
 
-This is the object the control API serves (``execute`` and ``status``) and the
-control cycle feeds (``on_sample`` once per telemetry frame, ``trip`` for trips
-found elsewhere, ``notify`` for link and controller events). It does no I/O;
-time comes from the injected ``clock`` (commands) or is passed in (samples).
-
-The control cycle reads :attr:`Supervisor.machine` ``.output`` after
-``on_sample``: ``CONTROL`` -> the active mode's controller, ``RAMP`` -> follow
-``machine.ramp.velocity_setpoint(t_s)``, ``OFF`` -> zero drive in the next frame.
+The control cycle asks it once per telemetry frame (``on_sample``) and gets one
+:class:`~daemon.supervisor.decision.Decision`: ``CONTROL`` -> the decision's
+state's controller, ``RAMP`` -> the cart velocity loop on the decision's
+``ramp_velocity_mps``, ``OFF`` -> zero drive in this very frame. Operator
+commands (``execute``, the control API's target), trips found between samples
+(``trip``) and link events (``notify``) each hand back the
+:class:`~daemon.supervisor.decision.Transition` they made, and the caller
+passes it to the same one transition handler the cycle uses (the cycle's
+:meth:`apply`). It does no I/O; time comes from the injected ``clock``
+(commands) or is passed in (samples).
 """
 
 from __future__ import annotations
@@ -17,6 +19,8 @@ from collections.abc import Callable
 
 from daemon.config import PoiseConfig
 from daemon.errors import CommandRefused
+from daemon.supervisor.decision import Decision, Output, Transition
+from daemon.supervisor.fault_hints import fault_hint
 from daemon.supervisor.interlocks import (
     Action,
     Checks,
@@ -25,8 +29,7 @@ from daemon.supervisor.interlocks import (
     Trip,
     stopping_distance_m,
 )
-from daemon.supervisor.fault_hints import fault_hint
-from daemon.supervisor.machine import LogEntry, Output, StateMachine
+from daemon.supervisor.machine import LogEntry, StateMachine
 from daemon.supervisor.prechecks import MOTION_COMMANDS, Health, PrecheckLimits, prearm_failures
 from daemon.supervisor.states import (
     COMMAND_NAMES,
@@ -59,9 +62,39 @@ CHECKS_BY_STATE: dict[State, Checks] = {
 _CHECK_MASKS = {state: int(mask) for state, mask in CHECKS_BY_STATE.items()}
 _SWITCHES = int(Checks.SWITCHES)
 _RAMP = Output.RAMP
+#: Entering these starts a new controller: the sustained-condition timers start afresh.
+_FRESH_TIMERS_STATES = frozenset({State.READY, State.SWING_UP, State.BALANCE, State.EXCITE})
 
 
 class Supervisor:
+    """One rig's supervisor. Every change hands back the :class:`Transition` it made (or None).
+
+    Slotted: :meth:`on_sample` stores the sample's measurements here every sample.
+    """
+
+    __slots__ = (
+        "_last_trip_name",
+        "_steady",
+        "clock",
+        "config",
+        "config_problems",
+        "device_watchdog_active",
+        "drive",
+        "faults",
+        "interlocks",
+        "limits",
+        "link_rate_hz",
+        "machine",
+        "omega_radps",
+        "precheck_limits",
+        "supply_v",
+        "switches",
+        "t_s",
+        "theta_rad",
+        "v_mps",
+        "x_m",
+    )
+
     def __init__(
         self,
         config: PoiseConfig,
@@ -84,11 +117,15 @@ class Supervisor:
         self.switches = self.faults = 0
         self.supply_v = math.nan
         self._last_trip_name: str | None = None
+        self._steady = self._steady_decision()
 
     # ------------------------------------------------------------------ control API
 
-    def execute(self, command: str, args: dict, source: str) -> dict:
-        """Carry out an operator command; raises CommandRefused (nothing changed) when it does not apply."""
+    def execute(self, command: str, args: dict, source: str) -> tuple[dict, Transition | None]:
+        """Carry out an operator command: its result and the transition it made.
+
+        Raises CommandRefused (nothing changed) when the command does not apply now.
+        """
         if command not in COMMAND_NAMES:
             raise CommandRefused(
                 f"{command}: unknown command (known: {', '.join(sorted(COMMAND_NAMES))})"
@@ -96,6 +133,8 @@ class Supervisor:
         cmd = Command(command)
         m = self.machine
         t_s = self.clock()
+        m.button_held = self.switches & SW_ESTOP_BUTTON != 0  # as last measured
+        before = (m.state, m.output, m.setpoint_m)
         try:
             if cmd in MOTION_COMMANDS and m.allows(cmd):
                 failures = prearm_failures(cmd, self.health(), self.precheck_limits)
@@ -103,21 +142,15 @@ class Supervisor:
                     raise CommandRefused(
                         f"{command}: pre-arm checks failed: " + "; ".join(map(str, failures))
                     )
-            previous = m.state
             state = m.apply(
                 cmd, source, t_s, args=args, v_mps=self.v_mps, cause=f"operator {command}"
             )
         except CommandRefused as refused:
             m.record(t_s, "refused", source, refused.reason)
             raise
-        if state is not previous and state in (
-            State.READY,
-            State.SWING_UP,
-            State.BALANCE,
-            State.EXCITE,
-        ):
+        if state is not before[0] and state in _FRESH_TIMERS_STATES:
             self.interlocks.reset_timers()
-        return {"state": state.name, "previous": previous.name}
+        return {"state": state.name, "previous": before[0].name}, self._changed(before)
 
     def status(self) -> dict:
         m = self.machine
@@ -166,79 +199,85 @@ class Supervisor:
         v_mps: float,
         theta_rad: float,
         omega_radps: float,
-        drive: float,
+        drive_applied: float,
         switches: int,
         faults: int,
         supply_v: float,
-    ) -> Trip | None:
-        """Run the interlocks on one sample, after the controller; returns a new trip (to record) or None.
+        seen: tuple[Event, str] | None = None,
+    ) -> Decision:
+        """This sample's decision, from its raw measurements and the mode event seen in it, if any
+        (``seen``: the event and what was seen).
 
-        A trip that persists over several samples is acted on once, when it first appears.
+        The interlocks run first, on the raw measurements (positions from the encoders,
+        velocities by raw difference) and the drive the device says it applied over the last
+        period; a trip that persists over several samples is acted on once, when it first
+        appears. Then the mode event (caught, fall, homing or excitation ended), if one was
+        seen in this sample and still applies. Then the stop ramp, if one runs.
         """
         self.t_s = t_s
         self.x_m = x_m
         self.v_mps = v_mps
         self.theta_rad = theta_rad
         self.omega_radps = omega_radps
-        self.drive = drive
+        self.drive = drive_applied
         self.switches = switches
         self.faults = faults
         self.supply_v = supply_v
         m = self.machine
-        m.button_held = switches & SW_ESTOP_BUTTON != 0
-        checks = _CHECK_MASKS[m.state]
-        if m.output is _RAMP:
+        before_state, before_output = m.state, m.output
+        checks = _CHECK_MASKS[before_state]
+        if before_output is _RAMP:
             checks |= _SWITCHES
         found = self.interlocks.check(
-            t_s, checks, x_m, v_mps, omega_radps, drive, switches, faults, supply_v
+            t_s, checks, x_m, v_mps, omega_radps, drive_applied, switches, faults, supply_v
         )
+        if found is None and seen is None and m.ramp is None:  # the common sample: no change
+            self._last_trip_name = None
+            return self._steady
         new_trip = None
         if found is None:
             self._last_trip_name = None
         elif found.name != self._last_trip_name:
             self._last_trip_name = found.name
-            self.trip(found, t_s)
-            new_trip = found
-        if m.ramp is not None:
+            if self._latch(found, t_s, "interlock"):
+                new_trip = found
+        if seen is not None:
+            self._apply_event(seen[0], "control", t_s, seen[1])
+        ramp = m.ramp
+        if ramp is not None:
             self._follow_ramp(t_s, v_mps)
-        return new_trip
+            ramp = m.ramp
+        ramp_v = 0.0 if ramp is None else ramp.velocity_setpoint(t_s)
+        if m.state is before_state and m.output is before_output and new_trip is None:
+            if ramp is None:
+                return self._steady
+            return Decision(_RAMP, before_state, m.setpoint_m, ramp_v)
+        transition = self._changed((before_state, before_output, m.setpoint_m))
+        return Decision(m.output, m.state, m.setpoint_m, ramp_v, transition, new_trip)
 
-    def trip(self, found: Trip, t_s: float, source: str = "interlock") -> None:
-        """Act on a trip found by any interlock (per-sample, link watchdog, error rates).
+    def trip(self, found: Trip, t_s: float, source: str = "interlock") -> Transition | None:
+        """Act on a trip found outside the per-sample check (link watchdog, error rates, device).
 
         A trip already latched under the same name changes nothing and is not logged again.
         """
         m = self.machine
-        if m.state in LATCHED_STATES and any(f.name == found.name for f in m.faults):
-            return
-        if found.estop:
-            event = Event.ESTOP_BUTTON
-            source = "rig-button"
-        elif found.name == "device.reset":
-            event = Event.DEVICE_RESET
-        elif found.name.startswith("device."):
-            event = Event.DEVICE_FAULT
-        else:
-            event = Event.INTERLOCK_TRIP
-        self.notify(event, source, t_s, cause=found.reason, trip=found)
+        before = (m.state, m.output, m.setpoint_m)
+        self._latch(found, t_s, source)
+        return self._changed(before)
 
     def notify(
         self, event: Event, source: str, t_s: float, cause: str = "", trip: Trip | None = None
-    ) -> bool:
-        """Apply an internal event; one that does not apply in the present state is logged and ignored."""
+    ) -> Transition | None:
+        """Apply an internal event (link up or down, device reset); one that does not apply in the
+        present state is logged and ignored. Returns the transition made, if any."""
         m = self.machine
-        if not m.allows(event):
-            m.record(
-                t_s,
-                "ignored",
-                source,
-                f"{event.value} in {m.state.name}" + (f": {cause}" if cause else ""),
-            )
-            return False
-        m.apply(event, source, t_s, cause=cause, v_mps=self.v_mps, trip=trip)
-        if event is Event.CAUGHT:
-            self.interlocks.reset_timers()
-        return True
+        before = (m.state, m.output, m.setpoint_m)
+        self._apply_event(event, source, t_s, cause, trip)
+        return self._changed(before)
+
+    def log(self, t_s: float, kind: str, source: str, text: str) -> None:
+        """Log something that changed no state (the device refused a Stop, say)."""
+        self.machine.record(t_s, kind, source, text)
 
     def note_link(self, rate_hz: float, device_watchdog_active: bool) -> None:
         """Link health for the pre-arm checks (the link layer calls this a few times a second)."""
@@ -335,10 +374,64 @@ class Supervisor:
 
     # ------------------------------------------------------------------ internals
 
+    def _latch(self, found: Trip, t_s: float, source: str) -> bool:
+        """Latch a trip; False if it was latched already under the same name (nothing new)."""
+        m = self.machine
+        if m.state in LATCHED_STATES and any(f.name == found.name for f in m.faults):
+            return False
+        if found.estop:
+            event = Event.ESTOP_BUTTON
+            source = "rig-button"
+        elif found.name == "device.reset":
+            event = Event.DEVICE_RESET
+        elif found.name.startswith("device."):
+            event = Event.DEVICE_FAULT
+        else:
+            event = Event.INTERLOCK_TRIP
+        self._apply_event(event, source, t_s, found.reason, found)
+        return True
+
+    def _apply_event(
+        self, event: Event, source: str, t_s: float, cause: str = "", trip: Trip | None = None
+    ) -> None:
+        m = self.machine
+        if not m.allows(event):
+            m.record(
+                t_s, "ignored", source,
+                f"{event.value} in {m.state.name}" + (f": {cause}" if cause else ""),
+            )
+            return
+        m.apply(event, source, t_s, cause=cause, v_mps=self.v_mps, trip=trip)
+        if event is Event.CAUGHT:
+            self.interlocks.reset_timers()
+
+    def _changed(self, before: tuple[State, Output, float]) -> Transition | None:
+        """The transition from ``before`` (state, output, set-point) to now, if any; keeps the
+        steady decision up to date."""
+        m = self.machine
+        state, output, setpoint_m = before
+        if m.state is state and m.output is output:
+            if m.setpoint_m != setpoint_m:
+                self._steady = self._steady_decision()
+            return None
+        self._steady = self._steady_decision()
+        entry = m.events[-1] if m.events else None
+        excitation = None
+        if m.state is State.EXCITE and state is not State.EXCITE:
+            args = m.excite_args
+            excitation = (str(args["kind"]), float(args["amplitude"]), float(args["duration_s"]))
+        return Transition(
+            state, m.state, output, m.output, entry.text if entry else "", excitation
+        )
+
+    def _steady_decision(self) -> Decision:
+        m = self.machine
+        return Decision(m.output, m.state, m.setpoint_m)
+
     def _follow_ramp(self, t_s: float, v_mps: float) -> None:
         ramp = self.machine.ramp
         if ramp.complete(t_s, v_mps):
-            self.notify(
+            self._apply_event(
                 Event.STOP_COMPLETE, "supervisor", t_s, cause=f"cart stopped ({v_mps:+.4f} m/s)"
             )
         elif ramp.overdue(t_s):
@@ -348,4 +441,4 @@ class Supervisor:
                 f"cart still at {v_mps:+.3f} m/s {ramp.timeout_s:g} s after the stop ramp ended",
                 {"v_mps": v_mps, "ramp_s": ramp.duration_s, "timeout_s": ramp.timeout_s},
             )
-            self.trip(overdue, t_s, source="supervisor")
+            self._latch(overdue, t_s, "supervisor")
