@@ -9,7 +9,7 @@ import subprocess
 import sys
 
 import pytest
-from test_config_support import REPO
+from test_config_support import REPO, config_dict, toml_text
 
 from daemon.cli import main
 from daemon.config import ConfigError, demo_config_path, load_config, parse_config
@@ -212,3 +212,30 @@ def test_check_config_reports_an_array_nested_5000_deep_in_one_line(tmp_path, ca
     assert capsys.readouterr().err.splitlines() == [
         f"poise: {path}: not readable TOML: arrays or inline tables nested too deeply"
     ]
+
+
+def test_check_config_reports_every_problem_in_every_file(tmp_path, capsys):
+    two_problems = tmp_path / "a.toml"
+    doc = config_dict(demo_config_path())
+    doc["track"]["length_m"] = True
+    del doc["drive"]["kind"]
+    two_problems.write_text(toml_text(doc))
+    good = demo_config_path()
+    not_toml = tmp_path / "b.toml"
+    not_toml.write_text("[rig\n")
+    missing = tmp_path / "none.toml"
+    weak_drive = tmp_path / "c.toml"
+    weak_drive.write_text(demo_text() + "\n[stop]\ndecel_mps2 = 90.0\n")
+
+    assert main(["check-config", str(two_problems), str(good), str(not_toml), str(missing), str(weak_drive)]) == 2
+    out, err = capsys.readouterr()
+    assert out.splitlines() == [f"{good}: ok (rig kestrel-1, 500 Hz, voltage drive)"]
+    lines = err.splitlines()
+    assert lines[:2] == [
+        f"poise: {two_problems}: track.length_m: Input should be a valid number (got true)",
+        f"poise: {two_problems}: drive.kind: required field is missing",
+    ]
+    assert lines[2].startswith(f"poise: {not_toml}: not valid TOML: ")
+    assert lines[3] == f"poise: {missing}: cannot read file: No such file or directory"
+    assert lines[4].startswith(f"poise: {weak_drive}: stop.decel_mps2: ")
+    assert len(lines) == 5

@@ -24,7 +24,7 @@ from daemon.config.control import (
     HomingSettings,
     SwingUpSettings,
 )
-from daemon.config.problems import ConfigError, describe
+from daemon.config.problems import ConfigError, ConfigErrors, describe
 from daemon.config.rig import (
     CartSettings,
     DriveSettings,
@@ -39,6 +39,7 @@ from daemon.config.service import ApiSettings, RecordingSettings
 
 __all__ = [
     "ConfigError",
+    "ConfigErrors",
     "PoiseConfig",
     "demo_config_path",
     "load_config",

@@ -15,7 +15,7 @@ from pydantic.fields import FieldInfo
 
 from daemon.config.base import range_reason
 
-__all__ = ["SHOWN_CHARS", "ConfigError", "describe"]
+__all__ = ["SHOWN_CHARS", "ConfigError", "ConfigErrors", "describe"]
 
 
 class ConfigError(Exception):
@@ -24,7 +24,22 @@ class ConfigError(Exception):
     def __init__(self, source: str, problems: list[str]):
         self.source = source
         self.problems = problems
-        super().__init__("\n".join(f"{source}: {p}" for p in problems))
+        super().__init__("\n".join(self.lines()))
+
+    def lines(self) -> list[str]:
+        """``source: problem``, one line per problem."""
+        return [f"{self.source}: {problem}" for problem in self.problems]
+
+
+class ConfigErrors(Exception):
+    """Several configs that cannot be used, each with its own problems (``poise check-config``)."""
+
+    def __init__(self, errors: list[ConfigError]):
+        self.errors = errors
+        super().__init__("\n".join(self.lines()))
+
+    def lines(self) -> list[str]:
+        return [line for error in self.errors for line in error.lines()]
 
 
 SHOWN_CHARS = 40
