@@ -146,7 +146,7 @@ def test_a_float_field_takes_an_integer_and_tuples_take_arrays():
                                   ("1e9", False), ("1.000001e9", True)]
 )
 def test_cart_counts_per_metre_must_resolve_under_a_millimetre(counts_per_m, refused):
-    # 1000 counts per metre is one count per millimetre (the range given with the task; no outside source).
+    # 1000 counts per metre is one count per millimetre; the bound is our choice (common practice, no source).
     text = edited("cart_counts_per_m = 173852.0", f"cart_counts_per_m = {counts_per_m}")
     if not refused:
         assert parse_config(text).encoders.cart_counts_per_m == float(counts_per_m)
