@@ -4,8 +4,8 @@ Each command module defines ``NAME``, ``HELP``, ``add_arguments(parser)`` and
 ``run(args) -> int``; a module offering several sub-commands instead defines
 ``COMMANDS``, a list of ``(NAME, HELP, add_arguments, run)`` tuples. Modules
 import their heavy dependencies inside ``run`` so that `poise --help` stays fast. Errors meant for the operator are raised as
-:class:`daemon.errors.OperatorError` (or ConfigError) and printed as one line
-with exit status 2, never as a traceback.
+:class:`daemon.errors.OperatorError` or ConfigError (ConfigErrors for several files) and printed
+one line per problem with exit status 2, never as a traceback.
 """
 
 from __future__ import annotations
@@ -18,7 +18,7 @@ from collections.abc import Callable
 from types import ModuleType
 
 import daemon.commands
-from daemon.config import ConfigError
+from daemon.config import ConfigError, ConfigErrors
 from daemon.errors import OperatorError
 from daemon.version import software_version
 
@@ -56,9 +56,9 @@ def main(argv: list[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     try:
         return args._run(args)
-    except ConfigError as exc:
-        for problem in exc.problems:
-            print(f"poise: {exc.source}: {problem}", file=sys.stderr)
+    except (ConfigError, ConfigErrors) as exc:
+        for line in exc.lines():
+            print(f"poise: {line}", file=sys.stderr)
         return 2
     except OperatorError as exc:
         print(f"poise: {exc}", file=sys.stderr)

@@ -2,14 +2,18 @@
 
 ``load_config(path)`` returns a frozen :class:`PoiseConfig` or raises
 :class:`ConfigError` whose ``problems`` are one line each, naming the field path
-(``cart.mass_kg``) and what is allowed there. Paths in a config file are taken
-from the file's own folder (``recording.db_path`` comes back absolute), so a
-command finds the same run store whatever its working directory; the built-in
-demo rig's store, and that of a config parsed from text, is in the working directory.
+(``cart.mass_kg``) and what is allowed there (:mod:`daemon.config.problems`).
+The types are strict and every number has a range (:mod:`daemon.config.base`);
+the fields that describe the plant have no defaults (:mod:`daemon.config.plant`).
+Paths in a config file are taken from the file's own folder
+(``recording.db_path`` comes back absolute), so a command finds the same run
+store whatever its working directory; the built-in demo rig's store, and that
+of a config parsed from text, is in the working directory.
 """
 
 from __future__ import annotations
 
+import sys
 import tomllib
 from importlib import resources
 from pathlib import Path
@@ -24,6 +28,7 @@ from daemon.config.control import (
     HomingSettings,
     SwingUpSettings,
 )
+from daemon.config.problems import ConfigError, ConfigErrors, describe
 from daemon.config.rig import (
     CartSettings,
     DriveSettings,
@@ -39,6 +44,7 @@ from daemon.config.timeouts import timeout_problems
 
 __all__ = [
     "ConfigError",
+    "ConfigErrors",
     "PoiseConfig",
     "demo_config_path",
     "load_config",
@@ -53,7 +59,7 @@ class PoiseConfig(Section):
     pendulum: PendulumSettings
     drive: DriveSettings
     encoders: EncoderSettings
-    sampling: SamplingSettings = Field(default_factory=SamplingSettings)
+    sampling: SamplingSettings
     estimator: EstimatorSettings = Field(default_factory=EstimatorSettings)
     balance: BalanceSettings = Field(default_factory=BalanceSettings)
     swing_up: SwingUpSettings = Field(default_factory=SwingUpSettings)
@@ -87,38 +93,24 @@ class PoiseConfig(Section):
         return self
 
 
-class ConfigError(Exception):
-    """A config that cannot be used; ``problems`` holds one human line per fault."""
-
-    def __init__(self, source: str, problems: list[str]):
-        self.source = source
-        self.problems = problems
-        super().__init__("\n".join(f"{source}: {p}" for p in problems))
-
-
-def _describe(error: dict) -> str:
-    path = ".".join(str(part) for part in error["loc"])
-    message = error["msg"].removeprefix("Value error, ")
-    if not path:  # a check across sections names its fields itself
-        return message
-    if error["type"] == "extra_forbidden":
-        message = "unknown field (check the spelling; see configs/ for the fields a rig config takes)"
-    elif error["type"] == "missing":
-        message = "required field is missing"
-    elif "input" in error and error["type"] not in ("model_type", "dict_type"):
-        message = f"{message} (got {error['input']!r})"
-    return f"{path}: {message}"
+def _read_toml(text: str, source: str) -> dict:
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(source, [f"not valid TOML: {exc}"]) from None
+    except RecursionError:
+        raise ConfigError(source, ["not readable TOML: arrays or inline tables nested too deeply"]) from None
+    except ValueError:  # Python refuses to read integers this long (CVE-2020-10735)
+        limit = sys.get_int_max_str_digits()
+        raise ConfigError(source, [f"not readable TOML: an integer of more than {limit} digits"]) from None
 
 
 def parse_config(text: str, source: str = "<config>") -> PoiseConfig:
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(source, [f"not valid TOML: {exc}"]) from None
+    data = _read_toml(text, source)
     try:
         return PoiseConfig.model_validate(data)
     except ValidationError as exc:
-        raise ConfigError(source, [_describe(e) for e in exc.errors()]) from None
+        raise ConfigError(source, [describe(e, PoiseConfig) for e in exc.errors()]) from None
 
 
 def load_config(path: str | Path) -> PoiseConfig:

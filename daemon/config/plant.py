@@ -1,4 +1,20 @@
-"""Map a validated rig config onto the plant model's parameters (the rig's one parameter set)."""
+"""Map a validated rig config onto the plant model's parameters (the rig's one parameter set).
+
+No silent defaults for the plant: every config field that reaches
+:class:`~sim_device.plant.PlantParams` here (track, cart, pendulum, drive) is
+required, and so are the encoders and ``sampling.rate_hz``, which set what the
+simulated rig measures and how often. Decided field by field, none of them has
+a default that is a true physical zero: friction (cart viscous and Coulomb,
+pivot viscous), the drive's dead band and the rotor's inertia are never zero on
+a real rig, so 0 is a modelling choice the config must state (write ``0.0``),
+not something a forgotten line may decide; ``drive.kind``, the motor's
+constants and ``track.has_limit_switches`` change what the model is. A force
+drive's torque constant and resistance give no force, but are required all
+the same: one rule, and the run record holds the whole drive.
+
+Gravity is the plant's default, 9.81 m/s^2, and has no config field.
+Controller tuning, interlock and service settings keep their defaults.
+"""
 
 from __future__ import annotations
 
@@ -13,10 +29,7 @@ __all__ = ["plant_params"]
 
 
 def plant_params(config: PoiseConfig) -> PlantParams:
-    """The :class:`PlantParams` described by ``config``'s track, cart, pendulum and drive sections.
-
-    Gravity is the plant's default, 9.81 m/s^2 (the config has no field for it).
-    """
+    """The :class:`PlantParams` described by ``config``'s track, cart, pendulum and drive sections."""
     drive = config.drive
     return PlantParams(
         cart_mass_kg=config.cart.mass_kg,
