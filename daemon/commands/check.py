@@ -1,7 +1,8 @@
 """`poise check-config`: validate rig configs and report every problem at once.
 
 Beyond the fields themselves, it checks on the plant model that the drive can brake as hard as
-the category 1 stop counts on (:mod:`daemon.control.stop_capability`).
+the category 1 stop counts on (:mod:`daemon.control.stop_capability`), and lists the values the
+file left out and had derived from the rig, with what each came from.
 """
 
 from __future__ import annotations
@@ -29,4 +30,6 @@ def run(args: argparse.Namespace) -> int:
         if problem is not None:
             raise ConfigError(str(path), [problem])
         print(f"{path}: ok (rig {config.rig.id}, {config.sampling.rate_hz} Hz, {config.drive.kind} drive)")
+        for value in config.derived:
+            print(f"  {value.describe()}")
     return 0
