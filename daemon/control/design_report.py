@@ -45,6 +45,7 @@ from daemon.control.lqr import augment_with_integrator
 from daemon.control.margins import LoopMargins, loop_margins
 from daemon.control.rig_setup import ControlSet, build_control_set
 from daemon.control.simulate import ClosedLoop
+from daemon.strict_json import finite_or_null
 from sim_device.sensors import SensorParams
 
 __all__ = [
@@ -233,7 +234,7 @@ class DesignReport:
         """The report as strict JSON: non-finite figures (never settles, no crossing) become null."""
         d = self.design
         poles = d.poles()
-        return _finite_or_null({
+        return finite_or_null({
             "K": list(d.k),
             "Ki": d.ki,
             "Nbar": d.nbar,
@@ -256,17 +257,6 @@ class DesignReport:
                 {"field": v.field, "value": v.value, "unit": v.unit, "from": v.source} for v in self.derived
             ],
         })
-
-
-def _finite_or_null(value):
-    """``value`` with every infinite or NaN float, at any depth, replaced by None."""
-    if isinstance(value, float):
-        return value if math.isfinite(value) else None
-    if isinstance(value, dict):
-        return {key: _finite_or_null(item) for key, item in value.items()}
-    if isinstance(value, list | tuple):
-        return [_finite_or_null(item) for item in value]
-    return value
 
 
 def design_report(config: PoiseConfig, step_m: float | None = None) -> DesignReport:
