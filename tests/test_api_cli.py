@@ -81,6 +81,8 @@ async def test_verb_sends_its_command_from_the_cli(socket_path, rig, verb, comma
             "excite",
             {"kind": "chirp", "amplitude": 2.0, "duration_s": 10.0},
         ),
+        # no --amplitude: the daemon sizes it for the rig, so none is sent
+        (["excite", "--kind", "prbs", "--duration", "5"], "excite", {"kind": "prbs", "duration_s": 5.0}),
         (["record", "on", "--note", "first try"], "record", {"on": True, "note": "first try"}),
         (["record", "off"], "record", {"on": False}),
     ],

@@ -3,9 +3,13 @@
 import dataclasses
 import itertools
 import math
+import subprocess
+import sys
+import tomllib
 
 import pytest
 from scipy.special import ellipk
+from test_daemon_support import KESTREL, WREN, write_rig_config
 
 from daemon.config import load_config
 from daemon.config.plant import plant_params
@@ -182,3 +186,53 @@ def test_energy_swing_up_keeps_the_cart_inside_its_travel_limit(path):
     loop.run(cs.swing_up.update, 10.0)
     assert loop.max_abs_x_m < cs.soft_limit_m * config.swing_up.track_use_fraction + 0.01
     assert loop.max_abs_command <= cs.params.drive.limit
+
+
+# --- the pumping offset, derived from the track ---------------------------------------------------
+
+def short_track_pump_config(tmp_path):
+    """Kestrel-1 on a 0.40 m track with its drive limited to 3 V, pumping (our scenario)."""
+    return load_config(write_rig_config(tmp_path, KESTREL, extra='[swing_up]\nlaw = "pump"\n',
+                                        edits={"length_m": "0.40", "limit": "3.0"}))
+
+
+@pytest.mark.parametrize("rig", ["kestrel-1", "wren-2", "short-weak"])
+def test_left_out_the_pump_offset_is_a_share_of_the_swing_up_travel(tmp_path, rig):
+    config = short_track_pump_config(tmp_path) if rig == "short-weak" else load_config(f"configs/{rig}.toml")
+    assert "pump_offset_m" not in tomllib.loads((WREN if rig == "wren-2" else KESTREL).read_text()).get("swing_up", {})
+    track = config.track
+    soft_m = track.length_m / 2 - track.switch_inset_m - config.interlocks.soft_limit_inset_m
+    # 0.7 of the travel: the share that caught fastest on both example rigs (measured, see
+    # daemon/config/derived.py), no outside source
+    assert config.swing_up.pump_offset_m == pytest.approx(0.7 * soft_m * config.swing_up.track_use_fraction, abs=1e-4)
+    assert any(value.field == "swing_up.pump_offset_m" for value in config.derived)
+
+
+def test_pumping_on_a_short_track_with_a_weak_drive_keeps_to_its_travel(tmp_path):
+    # The rig whose default offset (0.1 m) was refused with a traceback at session start.
+    config = short_track_pump_config(tmp_path)
+    cs = build_control_set(config)
+    sensors = SensorParams(config.encoders.cart_counts_per_m, config.encoders.pendulum_counts_per_rev, 0.5, 0.5)
+    loop = ClosedLoop(cs.params, sensors, cs.estimator, config.sampling.rate_hz, seed=1)
+    mgl = cs.params.pendulum_mass_kg * cs.params.com_distance_m * G
+    for _ in range(round(20.0 / loop.dt_s)):
+        loop.advance(cs.swing_up.update(*loop.measured))
+        if pendulum_energy(cs.params, loop.plant.state) > 2 * mgl * 0.9:  # trimming from here on
+            break
+    assert pendulum_energy(cs.params, loop.plant.state) > 2 * mgl * 0.9
+    assert cs.swing_up.switches >= 4
+    assert loop.max_abs_x_m < cs.soft_limit_m * config.swing_up.track_use_fraction
+
+
+def test_an_explicit_pump_offset_outside_the_travel_is_one_line_naming_the_field(tmp_path):
+    path = write_rig_config(tmp_path, KESTREL, extra='[swing_up]\nlaw = "pump"\npump_offset_m = 0.1\n',
+                            edits={"length_m": "0.40"})
+    result = subprocess.run([sys.executable, "-m", "daemon.cli", "session", "--config", str(path)],
+                            capture_output=True, text=True, check=False, timeout=60)
+    assert result.returncode == 2
+    assert "Traceback" not in result.stderr
+    assert result.stderr.splitlines() == [
+        f"poise: {path}: swing_up.pump_offset_m: 0.1 m is not inside the swing-up travel limit ±0.055 m, "
+        "which is swing_up.track_use_fraction 0.5 of the soft limit ±0.110 m; leave it out to have it "
+        "derived (0.7 of the travel limit)"
+    ]

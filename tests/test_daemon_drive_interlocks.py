@@ -1,7 +1,8 @@
 """Track and drive interlocks tripped on the simulated rig over a real pty, in lockstep.
 
 - The stopping-distance check, with the default settings of the demo rig: a
-  hostile excitation (a step far stronger than the hold loop) drives the cart
+  hostile excitation (a step far stronger than the hold loop, which the daemon
+  refuses as a command, swapped in for one it accepts) drives the cart
   toward the end; the trip's category 1 stop halts it within the distance the
   check predicted, before the limit switch.
 - Drive saturation held beyond its time (a step at the drive limit).
@@ -35,6 +36,7 @@ from test_daemon_support import (
     wait_for,
 )
 
+from daemon.control.excitation import Excitation
 from daemon.supervisor import Output, State
 from protocol import CAP_SUPPLY_VOLTAGE, SW_END_STOP, SW_LIMIT_NEG, SW_LIMIT_POS
 from sim_device.faults import CartEncoderDead, SupplySag
@@ -42,8 +44,15 @@ from sim_device.faults import CartEncoderDead, SupplySag
 KESTREL_SWITCH_M = 0.45 - 0.03  # half the 0.90 m track, less the switch inset
 
 
-def excite_step(volts: float) -> dict:
-    return {"kind": "step", "amplitude": volts, "duration_s": 5.0}
+async def hostile_step(service, volts: float) -> None:
+    """Run a 5 s step excitation of ``volts`` from READY.
+
+    The daemon refuses a step its model predicts to take the cart off the track, and these are
+    such steps. The interlocks are there for motion that is hostile anyway (a model that is
+    wrong, a fault), so a step the daemon accepts is started and its signal swapped for this one.
+    """
+    await execute_when_still(service, "excite", {"kind": "step", "duration_s": 5.0})
+    service.cycle.modes.excitation = Excitation("step", volts, 5.0)
 
 
 async def test_a_stopping_distance_trip_with_default_settings_stops_before_the_limit_switch(tmp_path):
@@ -52,7 +61,7 @@ async def test_a_stopping_distance_trip_with_default_settings_stops_before_the_l
         await homed_and_ready(service)
         # 2 V on top of the hold loop, which asks for at most 2 m/s^2 against it: the cart
         # accelerates toward +x at about 5 m/s^2 until the check sees it cannot stop in time.
-        await execute_when_still(service, "excite", excite_step(2.0))
+        await hostile_step(service, 2.0)
         await wait_for(service, State.FAULT)
         assert latched(service) == ["track.stopping_distance"]
         trip = service.supervisor.machine.faults[0].values
@@ -78,14 +87,13 @@ async def test_drive_saturated_beyond_its_time_starts_a_controlled_stop(tmp_path
     # Our scenario: Kestrel-1 started low, its drive limited to 4 V, and a step at that limit. The
     # command stays saturated while the back-EMF holds the cart near 0.5 m/s; 0.3 s of it is
     # allowed here, over well before the cart nears the end of the track. At 4 V the drive brakes
-    # at 10.4 m/s^2 or more, so the stop may count on 5 (the daemon refuses the default 6).
+    # at 10.4 m/s^2 or more, so the stop's deceleration is derived as 5.09 m/s^2.
     async with running_service(
-        tmp_path, edits={"limit": "4.0"},
-        extra="[interlocks]\nsaturation_time_s = 0.3\n[stop]\ndecel_mps2 = 5.0\n",
+        tmp_path, edits={"limit": "4.0"}, extra="[interlocks]\nsaturation_time_s = 0.3\n"
     ) as service:
         service.start_recording("test")
         await homed_and_ready(service)
-        await execute_when_still(service, "excite", excite_step(4.0))
+        await hostile_step(service, 4.0)
         await wait_for(service, State.FAULT)
         assert latched(service) == ["drive.saturation"]
         fault = service.supervisor.machine.faults[0]
@@ -116,7 +124,7 @@ async def test_drive_without_cart_motion_from_a_dead_cart_encoder_switches_the_d
         await homed_and_ready(service)
         service.rig.schedule_fault(service.rig.sim_time_s, CartEncoderDead())
         await run_for(service, 0.05)
-        await execute_when_still(service, "excite", excite_step(7.0))
+        await hostile_step(service, 7.0)
         await wait_for(service, State.FAULT)
         await check_drive_off_trip(service, "drive.plausibility")
         assert service.supervisor.machine.faults[0].values["held_s"] > 0.2

@@ -64,9 +64,12 @@ def test_stopping_distance_matches_the_highway_code_table(mph, metres):
     assert stopping_distance_m(-mph * MPH, decel_mps2, reaction_s) == pytest.approx(metres, abs=1.0)
 
 
+STOP_AT_6 = "\n[stop]\ndecel_mps2 = 6.0\n"  # a stop of 6 m/s^2 on the demo rig (ours), for round figures
+
+
 def test_predictive_check_trips_only_when_the_stop_would_not_fit_toward_the_limit():
-    il = interlocks()
-    # Demo defaults: the stop's 6 m/s^2, 10 ms reaction plus the stop loop's 50 ms lag: at
+    il = interlocks(STOP_AT_6)
+    # The stop's 6 m/s^2, the demo's 10 ms reaction plus the stop loop's 50 ms lag: at
     # 1.2 m/s the stop needs 1.2 * 0.06 + 1.2^2 / 12 = 0.072 + 0.12 = 0.192 m.
     assert sample(il, x_m=0.16, v_mps=1.2) is None  # 0.20 m of room
     trip = sample(il, x_m=0.18, v_mps=1.2)  # 0.18 m of room
@@ -83,7 +86,7 @@ def test_predictive_check_brakes_at_the_stop_ramps_deceleration():
     assert gentle.limits.stop_decel_mps2 == 3.0
     # 1.2 * 0.06 + 1.44 / 6 = 0.312 m needed, 0.26 m of room.
     assert sample(gentle, x_m=0.10, v_mps=1.2).name == "track.stopping_distance"
-    assert sample(interlocks(), x_m=0.10, v_mps=1.2) is None
+    assert sample(interlocks(STOP_AT_6), x_m=0.10, v_mps=1.2) is None
 
 
 def test_beyond_the_soft_limit_is_a_controlled_stop_and_names_the_position():
@@ -138,9 +141,9 @@ def test_with_no_room_inside_the_soft_limits_the_cart_at_the_centre_is_not_calm(
 
 
 def test_the_calm_envelope_holds_a_balance_run_and_ends_where_the_stop_still_fits_twice():
-    il = interlocks()
+    il = interlocks(STOP_AT_6)
     assert il.calm_x_m == pytest.approx(0.18)  # half the demo rig's 0.36 m soft limit
-    # demo: 0.06 s lag, 6 m/s^2: v * 0.06 + v^2 / 12 = 0.09 m (a quarter of the soft limit)
+    # 0.06 s lag, 6 m/s^2: v * 0.06 + v^2 / 12 = 0.09 m (a quarter of the soft limit)
     assert il.calm_v_mps * 0.06 + il.calm_v_mps**2 / 12 == pytest.approx(0.09)
     assert sample(il, x_m=il.calm_x_m, v_mps=il.calm_v_mps) is None
     assert sample(il, x_m=-il.calm_x_m, v_mps=-il.calm_v_mps) is None

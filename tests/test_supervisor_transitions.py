@@ -13,6 +13,7 @@ from collections import deque
 import pytest
 
 from daemon.config import demo_config_path, parse_config
+from daemon.control.excitation_sizing import ExcitationSizing
 from daemon.errors import CommandRefused
 from daemon.supervisor.interlocks import Action, Trip
 from daemon.supervisor.machine import Output, StateMachine
@@ -29,7 +30,7 @@ from daemon.supervisor.states import (
 TRIGGERS = [*Command, *Event]
 ARGS = {
     Command.SETPOINT: {"x_m": 0.05},
-    Command.EXCITE: {"kind": "chirp", "amplitude": 2.0, "duration_s": 5.0},
+    Command.EXCITE: {"kind": "chirp", "duration_s": 5.0},  # the amplitude sized for the rig
 }
 
 
@@ -74,7 +75,7 @@ def snapshot(machine: StateMachine) -> dict:
     return {
         key: copy.deepcopy(value)
         for key, value in vars(machine).items()
-        if key not in ("events", "_on_entry")
+        if key not in ("events", "_on_entry", "_excitation")  # the last: the rig's fixed model
     }
 
 
@@ -220,6 +221,12 @@ def test_reset_is_refused_while_the_controlled_stop_still_runs():
             {"kind": "step", "amplitude": 1.0, "duration_s": True},
             "excite: duration_s must be a finite",
         ),
+        (
+            Command.EXCITE,
+            {"kind": "step", "amplitude": 2.0, "duration_s": 10.0},
+            r"excite: a 10 s step of amplitude 2 V is predicted to take the cart past the soft limits "
+            r"±0\.360 m; the largest safe amplitude here is 0\.\d+ V",
+        ),
     ],
 )
 def test_bad_arguments_are_refused_naming_command_and_field_and_nothing_changes(
@@ -230,6 +237,19 @@ def test_bad_arguments_are_refused_naming_command_and_field_and_nothing_changes(
     with pytest.raises(CommandRefused, match=message):
         machine.apply(command, "api", 1.0, args=args)
     assert snapshot(machine) == before
+
+
+def test_an_excitation_without_amplitude_is_sized_for_the_rig_and_its_set_point():
+    sizing = ExcitationSizing.from_config(config())
+    machine = machine_in(State.READY)
+    machine.apply(Command.EXCITE, "api", 1.0, args={"kind": "step", "duration_s": 10.0})
+    assert machine.excite_args == {
+        "kind": "step", "amplitude": sizing.default_amplitude("step", 10.0, 0.0), "duration_s": 10.0
+    }
+    offset = machine_in(State.READY)
+    offset.apply(Command.SETPOINT, "api", 1.0, args={"x_m": 0.2})
+    offset.apply(Command.EXCITE, "api", 1.0, args={"kind": "step", "duration_s": 10.0})
+    assert 0.0 < offset.excite_args["amplitude"] < machine.excite_args["amplitude"]
 
 
 def test_setpoint_inside_the_soft_limit_is_taken():

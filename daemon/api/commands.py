@@ -12,7 +12,8 @@ import math
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 
-EXCITE_KINDS = ("chirp", "prbs", "step")
+from daemon.control.excitation import EXCITE_KINDS
+
 RECORD_NOTE_MAX_CHARS = 200
 
 # Commands the server answers itself; every other command goes to the target's execute().
@@ -110,12 +111,9 @@ COMMANDS: dict[str, CommandSpec] = {
         CommandSpec("reset", "clear a latched fault or e-stop (never starts motion)"),
         CommandSpec(
             "excite",
-            "run an identification excitation",
-            required={
-                "kind": one_of(*EXCITE_KINDS),
-                "amplitude": positive_number,
-                "duration_s": positive_number,
-            },
+            "run an identification excitation (amplitude left out: sized for the rig)",
+            required={"kind": one_of(*EXCITE_KINDS), "duration_s": positive_number},
+            optional={"amplitude": positive_number},
         ),
         CommandSpec(
             "record",

@@ -15,10 +15,10 @@ carries ``"reason"``. Status stream lines are ``{"status": {...}}``.
 from __future__ import annotations
 
 import json
-import math
 from dataclasses import dataclass
 
 from daemon.api.commands import BadRequest, validate_args
+from daemon.strict_json import finite_or_null
 
 CLIENT_SOURCES = ("api", "cli", "dashboard")
 REQUEST_FIELDS = ("id", "cmd", "args", "source")
@@ -107,7 +107,7 @@ def encode_json(message: object) -> bytes:
     try:
         text = json.dumps(message, allow_nan=False, separators=(",", ":"))
     except ValueError:
-        text = json.dumps(_finite_or_null(message), allow_nan=False, separators=(",", ":"))
+        text = json.dumps(finite_or_null(message), allow_nan=False, separators=(",", ":"))
     return text.encode()
 
 
@@ -124,16 +124,6 @@ def status_reply_line(request_id: int | str, status_json: bytes) -> bytes:
 def status_stream_line(status_json: bytes) -> bytes:
     """One status stream line, around an already encoded status object."""
     return b'{"status":' + status_json + b"}\n"
-
-
-def _finite_or_null(value: object) -> object:
-    if isinstance(value, float):
-        return value if math.isfinite(value) else None
-    if isinstance(value, dict):
-        return {key: _finite_or_null(item) for key, item in value.items()}
-    if isinstance(value, list | tuple):
-        return [_finite_or_null(item) for item in value]
-    return value
 
 
 def ok_reply(request_id: int | str, result: dict) -> dict:

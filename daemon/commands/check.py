@@ -1,7 +1,8 @@
 """`poise check-config`: validate rig configs and report every problem in every file at once.
 
 Beyond the fields themselves, it checks on the plant model that the drive can brake as hard as
-the category 1 stop counts on (:mod:`daemon.control.stop_capability`). A bad file does not stop
+the category 1 stop counts on (:mod:`daemon.control.stop_capability`), and lists the values the
+file left out and had derived from the rig, with what each came from. A bad file does not stop
 the check: each file given is checked, and all their problems are printed, one line each.
 """
 
@@ -41,6 +42,8 @@ def run(args: argparse.Namespace) -> int:
             failed.append(exc)
             continue
         print(f"{path}: ok (rig {config.rig.id}, {config.sampling.rate_hz} Hz, {config.drive.kind} drive)")
+        for value in config.derived:
+            print(f"  {value.describe()}")
     if failed:
         raise ConfigErrors(failed)
     return 0

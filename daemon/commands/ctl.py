@@ -12,8 +12,8 @@ import argparse
 from collections.abc import Callable
 from dataclasses import dataclass, field
 
-from daemon.api.commands import EXCITE_KINDS
 from daemon.commands import add_config_argument, config_path
+from daemon.control.excitation import EXCITE_KINDS
 
 # asyncio, json, rich and the API client are imported inside run() (see daemon/cli.py).
 
@@ -40,13 +40,20 @@ def _add_excite(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--kind", required=True, choices=EXCITE_KINDS, help="excitation signal")
     parser.add_argument(
         "--amplitude",
-        required=True,
         type=float,
-        help="drive amplitude (volts or newtons, as the rig's drive)",
+        help="drive amplitude, volts or newtons as the rig's drive (default: sized for the rig, so "
+        "the run keeps the cart well inside the soft limits; a larger one than the rig allows is refused)",
     )
     parser.add_argument(
         "--duration", required=True, type=float, metavar="S", help="length of the run in seconds"
     )
+
+
+def _excite_args(args: argparse.Namespace) -> dict:
+    api_args: dict = {"kind": args.kind, "duration_s": args.duration}
+    if args.amplitude is not None:
+        api_args["amplitude"] = args.amplitude
+    return api_args
 
 
 def _add_record(parser: argparse.ArgumentParser) -> None:
@@ -125,7 +132,7 @@ VERBS = (
         "excite",
         "run an identification excitation",
         _add_excite,
-        lambda args: {"kind": args.kind, "amplitude": args.amplitude, "duration_s": args.duration},
+        _excite_args,
     ),
     Verb("record", "record", "start or stop recording", _add_record, _record_args),
     Verb("status", "status", "show the daemon's status (a table, or --json)"),

@@ -1,4 +1,10 @@
-"""`poise design`: balance gains for a rig, their margins and predicted step response; optionally saved."""
+"""`poise design`: balance gains for a rig, their margins and predicted step response; optionally saved.
+
+The table and the JSON name the LQR weights the gains came from, say why a predicted step
+never settles, and list the config values the file left out and had derived from the rig.
+``--json`` is strict JSON: a figure that does not exist (never settles, no margin crossing) is
+``null``.
+"""
 
 from __future__ import annotations
 
@@ -61,6 +67,20 @@ def _figure(value: float, unit: str, digits: int = 3) -> str:
     return "never settles" if math.isinf(value) else f"{value:.{digits}f} {unit}"
 
 
+def _margin(value: float, unit: str) -> str:
+    return "none" if math.isinf(value) else f"{value:.1f} {unit}"
+
+
+def _weights(weights) -> list[tuple[str, str]]:
+    """Table rows for the LQR weights the gains were designed with."""
+    integral = "off (balance.integral_action)" if weights.integral_weight is None else f"{weights.integral_weight:g}"
+    return [
+        ("LQR weights Q (x, v, theta, omega)", ", ".join(f"{q:g}" for q in weights.q_diag)),
+        ("LQR weight R (drive)", f"{weights.r:g}"),
+        ("LQR weight on the integral of x", integral),
+    ]
+
+
 def _print_table(report, source: str) -> None:
     from rich.console import Console
     from rich.table import Table
@@ -71,6 +91,8 @@ def _print_table(report, source: str) -> None:
     gains = Table(title=f"Balance LQR for {source} ({data['sample_rate_hz']} Hz, drive in {unit})")
     gains.add_column("quantity")
     gains.add_column("value", justify="right")
+    for name, value in _weights(report.weights):
+        gains.add_row(name, value)
     k_names = ("K x (per m)", "K v (per m/s)", "K theta (per rad)", "K omega (per rad/s)")
     for name, value, cont in zip(k_names, data["K"], data["K_continuous"], strict=True):
         gains.add_row(name, f"{value:.4f}   (continuous {cont:.4f})")
@@ -78,9 +100,9 @@ def _print_table(report, source: str) -> None:
         gains.add_row("K integral (per m s)", f"{data['Ki']:.4f}")
     gains.add_row("Nbar", f"{data['Nbar']:.4f}")
     gains.add_row("closed-loop poles (z)", ", ".join(f"{re:.4f}{im:+.4f}j" for re, im in data["poles"]))
-    m = data["margins"]
-    gains.add_row("phase margin at the plant input", f"{m['phase_margin_deg']:.1f} deg")
-    gains.add_row("gain margin (up / down)", f"{m['gain_margin_upper_db']:.1f} dB / {m['gain_margin_lower_db']:.1f} dB")
+    m = report.margins
+    gains.add_row("phase margin at the plant input", _margin(m.phase_margin_deg, "deg"))
+    gains.add_row("gain margin (up / down)", f"{_margin(m.gain_margin_upper_db, 'dB')} / {_margin(m.gain_margin_lower_db, 'dB')}")
     gains.add_row("largest recoverable angle from rest", f"{data['largest_recoverable_angle_deg']:.1f} deg")
     console.print(gains)
     step = Table(title=f"Predicted response to a {report.linear.step_m} m cart set-point step")
@@ -95,6 +117,11 @@ def _print_table(report, source: str) -> None:
     step.add_row("steady-state error", f"{lin.steady_state_error_pct:.2f} %", f"{non.steady_state_error_pct:.2f} %")
     step.add_row("saturated samples", "-", f"{non.saturated_samples} of {non.samples}")
     console.print(step)
+    for model, figures in (("linear model", lin), ("plant model", non)):
+        if figures.unsettled_reason is not None:
+            console.print(f"{model}: never settles: {figures.unsettled_reason}", highlight=False)
+    for value in report.derived:
+        console.print(f"derived: {value.describe()}", highlight=False)
 
 
 def run(args: argparse.Namespace) -> int:
@@ -109,7 +136,7 @@ def run(args: argparse.Namespace) -> int:
     except ValueError as exc:
         raise OperatorError(f"design: {path}: {exc}") from None
     if args.json:
-        print(json.dumps(report.to_json(), indent=2))
+        print(json.dumps(report.to_json(), indent=2, allow_nan=False))
     else:
         _print_table(report, str(path))
     if args.write:

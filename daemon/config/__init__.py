@@ -9,6 +9,10 @@ Paths in a config file are taken from the file's own folder
 (``recording.db_path`` comes back absolute), so a command finds the same run
 store whatever its working directory; the built-in demo rig's store, and that
 of a config parsed from text, is in the working directory.
+Values a file may leave out to have them derived from the rig
+(``stop.decel_mps2``, ``swing_up.pump_offset_m``) are filled in once, as the
+config is parsed (:mod:`daemon.config.derived`); the config's
+:attr:`~PoiseConfig.derived` says which and from what.
 """
 
 from __future__ import annotations
@@ -18,7 +22,7 @@ import tomllib
 from importlib import resources
 from pathlib import Path
 
-from pydantic import Field, ValidationError, model_validator
+from pydantic import Field, PrivateAttr, ValidationError, model_validator
 
 from daemon.config.base import Section
 from daemon.config.control import (
@@ -29,6 +33,7 @@ from daemon.config.control import (
     SwingUpSettings,
 )
 from daemon.config.problems import ConfigError, ConfigErrors, describe
+from daemon.config.derived import DerivedValue, resolve_derived
 from daemon.config.rig import (
     CartSettings,
     DriveSettings,
@@ -69,6 +74,12 @@ class PoiseConfig(Section):
     stop: StopSettings = Field(default_factory=StopSettings)
     recording: RecordingSettings = Field(default_factory=RecordingSettings)
     api: ApiSettings = Field(default_factory=ApiSettings)
+    _derived: tuple[DerivedValue, ...] = PrivateAttr(default=())
+
+    @property
+    def derived(self) -> tuple[DerivedValue, ...]:
+        """The values this config left out and had derived from the rig, in the order they were derived."""
+        return self._derived
 
     @property
     def soft_limit_m(self) -> float:
@@ -108,9 +119,13 @@ def _read_toml(text: str, source: str) -> dict:
 def parse_config(text: str, source: str = "<config>") -> PoiseConfig:
     data = _read_toml(text, source)
     try:
-        return PoiseConfig.model_validate(data)
+        config = PoiseConfig.model_validate(data)
     except ValidationError as exc:
         raise ConfigError(source, [describe(e, PoiseConfig) for e in exc.errors()]) from None
+    config, problems = resolve_derived(config)
+    if problems:
+        raise ConfigError(source, problems)
+    return config
 
 
 def load_config(path: str | Path) -> PoiseConfig:

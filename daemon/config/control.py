@@ -72,7 +72,10 @@ class SwingUpSettings(Section):
     )
     position_gain_per_s2: float = Field(default=8.0, ge=0.0, le=1e4)
     velocity_gain_per_s: float = Field(default=4.0, ge=0.0, le=1e4)
-    pump_offset_m: float = Field(default=0.1, gt=0.0, le=5.0, description="set-points at ±this")
+    pump_offset_m: float | None = Field(
+        default=None, gt=0.0, le=5.0,
+        description="set-points at ±this; derived from the swing-up travel limit when left out",
+    )
     pump_bandwidth_hz: float = Field(default=2.5, gt=0.0, le=100.0, description="inner position loop")
     track_use_fraction: float = Field(
         default=0.5, gt=0.0, le=1.0, description="swing-up keeps the cart within this share of the soft limits"

@@ -133,15 +133,17 @@ class StopSettings(Section):
     # The category 1 ramp's deceleration, and the braking the predictive stopping-distance
     # interlock counts on. The velocity loop following the ramp may ask the drive for up to twice
     # this (daemon/supervisor/stop_ramp.py), so it must stay within what the drive gives at its
-    # limit in every state: 6 m/s^2 asks up to 12, and at their drive limits Kestrel-1 brakes
-    # at 37.9 m/s^2 or more and Wren-2 at 16.0 or more, whatever the pendulum does short of
-    # running away. poise run, session and check-config refuse a rig whose drive cannot give
-    # it (daemon/control/stop_capability.py, on the plant model).
-    decel_mps2: float = Field(
-        default=6.0,
+    # limit in every state. Left out, it is derived as the config is loaded (daemon/config/derived.py):
+    # the most the drive surely gives, bounded by what the track needs; Kestrel-1 gets 18.57 m/s^2
+    # (its drive brakes at 37.9 or more at 12 V) and Wren-2 7.84 (16.0 or more at 10 N). Given,
+    # poise run, session and check-config refuse it if the drive cannot give it
+    # (daemon/control/stop_capability.py, on the plant model).
+    decel_mps2: float | None = Field(
+        default=None,
         gt=0.0,
         le=100.0,
-        description="category 1 stop deceleration; the stopping-distance interlock assumes it",
+        description="category 1 stop deceleration; the stopping-distance interlock assumes it; "
+        "derived from the drive and the track when left out",
     )
     stopped_speed_mps: float = Field(
         default=0.01, gt=0.0, le=1.0, description="the cart counts as stopped below this speed"

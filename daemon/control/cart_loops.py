@@ -48,10 +48,18 @@ class CartHold:
     def reset(self, state: tuple[float, float, float, float], last_drive: float) -> None:
         """Nothing to initialise: the loop is static; kept for the common controller shape."""
 
+    @property
+    def max_accel_mps2(self) -> float:
+        """The most cart acceleration the loop asks for; beyond it the loop is saturated."""
+        return self._a_max
+
+    def accel_command(self, x: float, v: float, theta: float, omega: float) -> float:
+        """The cart acceleration the loop wants in this state, before its limit."""
+        return self._wc2 * (self.set_point_m - x) - self._2wc * v - self._damping * math.cos(theta) * omega
+
     def update(self, x: float, v: float, theta: float, omega: float) -> float:
-        cos_th = math.cos(theta)
-        a = self._wc2 * (self.set_point_m - x) - self._2wc * v - self._damping * cos_th * omega
-        return self._drive.command_for(clamp(a, self._a_max), v, math.sin(theta), cos_th, omega)
+        a = clamp(self.accel_command(x, v, theta, omega), self._a_max)
+        return self._drive.command_for(a, v, math.sin(theta), math.cos(theta), omega)
 
 
 class CartVelocityFollower:

@@ -6,33 +6,63 @@ run, phase ``2 pi (f0 t + (f1 - f0) t^2 / (2 T))``. ``prbs``: a maximal-length
 127 bits) of ``±amplitude``, one bit per PRBS_BIT_S. ``step``: ``+amplitude``
 for the whole run. The hold loop under it keeps the cart near its set-point, so
 the run stays on the track; the recorded drive is what identification uses.
+
+:func:`unit_waveform` gives the same signals at unit amplitude for many times at
+once (numpy arrays), for predicting a run before it starts
+(:mod:`daemon.control.excitation_sizing`).
 """
 
 from __future__ import annotations
 
 import math
+from typing import TYPE_CHECKING
 
-__all__ = ["Excitation"]
+if TYPE_CHECKING:
+    import numpy as np
 
+__all__ = ["EXCITE_KINDS", "PRBS_BITS", "Excitation", "chirp_phase_rad", "unit_waveform"]
+
+EXCITE_KINDS = ("chirp", "prbs", "step")
 CHIRP_START_HZ = 0.2
 CHIRP_END_HZ = 5.0
 PRBS_BIT_S = 0.02
 
 
+def _prbs_period() -> tuple[float, ...]:
+    """One period of the PRBS as ±1: the register's low bit after each shift, from all ones."""
+    register, bits = 0x7F, []
+    for _ in range(127):
+        feedback = ((register >> 6) ^ (register >> 5)) & 1
+        register = ((register << 1) | feedback) & 0x7F
+        bits.append(1.0 if register & 1 else -1.0)
+    return tuple(bits)
+
+
+#: One period (127 bits) of the PRBS at unit amplitude; bit ``k`` is held from ``k PRBS_BIT_S``.
+PRBS_BITS = _prbs_period()
+
+
+def chirp_phase_rad(t_s, duration_s: float):
+    """The chirp's phase at ``t_s`` (a float or an array) for a run of ``duration_s``."""
+    sweep = (CHIRP_END_HZ - CHIRP_START_HZ) / (2.0 * duration_s)
+    return 2.0 * math.pi * (CHIRP_START_HZ * t_s + sweep * t_s * t_s)
+
+
+def _check_kind(kind: str) -> None:
+    if kind not in EXCITE_KINDS:
+        raise ValueError(f"excite: unknown kind {kind!r} (chirp, prbs or step)")
+
+
 class Excitation:
     """``value(t_s)`` is the drive offset ``t_s`` after the start; ``done(t_s)`` once the run is over."""
 
-    __slots__ = ("_bit", "_bit_index", "_register", "amplitude", "duration_s", "kind")
+    __slots__ = ("amplitude", "duration_s", "kind")
 
     def __init__(self, kind: str, amplitude: float, duration_s: float):
-        if kind not in ("chirp", "prbs", "step"):
-            raise ValueError(f"excite: unknown kind {kind!r} (chirp, prbs or step)")
+        _check_kind(kind)
         self.kind = kind
         self.amplitude = amplitude
         self.duration_s = duration_s
-        self._register = 0x7F
-        self._bit_index = -1
-        self._bit = 1.0
 
     def done(self, t_s: float) -> bool:
         return t_s >= self.duration_s
@@ -41,12 +71,17 @@ class Excitation:
         if self.kind == "step":
             return self.amplitude
         if self.kind == "chirp":
-            sweep = (CHIRP_END_HZ - CHIRP_START_HZ) / (2.0 * self.duration_s)
-            return self.amplitude * math.sin(2.0 * math.pi * (CHIRP_START_HZ * t_s + sweep * t_s * t_s))
-        index = int(t_s / PRBS_BIT_S)
-        while self._bit_index < index:
-            feedback = ((self._register >> 6) ^ (self._register >> 5)) & 1
-            self._register = ((self._register << 1) | feedback) & 0x7F
-            self._bit = 1.0 if self._register & 1 else -1.0
-            self._bit_index += 1
-        return self.amplitude * self._bit
+            return self.amplitude * math.sin(chirp_phase_rad(t_s, self.duration_s))
+        return self.amplitude * PRBS_BITS[int(t_s / PRBS_BIT_S) % 127]
+
+
+def unit_waveform(kind: str, duration_s: float, times_s: np.ndarray) -> np.ndarray:
+    """The signal of ``kind`` at unit amplitude at each of ``times_s`` (all within the run)."""
+    import numpy as np  # only for predictions; the control cycle uses Excitation
+
+    _check_kind(kind)
+    if kind == "step":
+        return np.ones_like(times_s)
+    if kind == "chirp":
+        return np.sin(chirp_phase_rad(times_s, duration_s))
+    return np.asarray(PRBS_BITS)[(times_s / PRBS_BIT_S).astype(int) % 127]

@@ -6,6 +6,7 @@ import math
 from dataclasses import dataclass
 
 from daemon.config import PoiseConfig
+from daemon.config.derived import swing_up_travel_m
 from daemon.config.plant import plant_params
 from daemon.control.balance import BalanceController, BalanceDesign, design_balance
 from daemon.control.catch import CatchWindow, natural_frequency_radps
@@ -59,7 +60,7 @@ def build_control_set(
         )
     estimator = StateEstimator(scaling, dt, est.difference_cutoff_hz, kalman, math.radians(est.kalman_region_deg))
     soft = soft_limit_m(config)
-    travel = soft * config.swing_up.track_use_fraction
+    travel = swing_up_travel_m(config)
     law = law or config.swing_up.law
     if law == "energy":
         swing: EnergySwingUp | PumpSwingUp = EnergySwingUp(params, config.swing_up, travel)

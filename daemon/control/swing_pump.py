@@ -54,12 +54,13 @@ upright energy no new move starts; above it, moves run the other way and
 take energy out.
 
 Measured on the plant model with encoder noise of 0.5 counts, 64 seeds each
-(bench/bench_swing_up.py prints the table): from hanging at rest to the
-catch in 5.3-7.8 s on Kestrel-1 and 4.1-5.9 s on Wren-2, every seed caught
-and balanced (10 s; 30 s for seeds 0-15), the amplitude growing every half
-swing until the trim. With three times that noise (1.5 counts) Kestrel-1 is
-unaffected, but on Wren-2 (2000-count pendulum encoder at 1 kHz) the moves are
-sometimes mistimed and 2 of 32 seeds were not caught within 30 s: the
+(bench/bench_swing_up.py prints the table), with the offset derived from the
+track (daemon/config/derived.py; 0.126 m on Kestrel-1, 0.0595 m on Wren-2):
+from hanging at rest to the catch in 5.1-5.4 s on Kestrel-1 and 4.2-5.9 s on
+Wren-2, every seed caught and balanced for 30 s, the amplitude growing every
+half swing until the trim. With three times that noise (1.5 counts) Kestrel-1
+is unaffected, but on Wren-2 (2000-count pendulum encoder at 1 kHz) the moves are
+sometimes mistimed and 1 of 32 seeds was not caught within 30 s: the
 switching reads the sign of a velocity estimate that is mostly noise near the
 turning points. The energy law caught all 32 at that noise.
 """

@@ -34,6 +34,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
+from daemon.control.excitation import EXCITE_KINDS
 from daemon.errors import CommandRefused
 from daemon.supervisor.decision import Output
 from daemon.supervisor.interlocks import Action, Trip, soft_limit_m
@@ -54,7 +55,6 @@ if TYPE_CHECKING:
 log = logging.getLogger("poise.supervisor")
 
 EVENT_HISTORY = 20
-EXCITE_KINDS = ("chirp", "prbs", "step")
 MAX_EXCITE_DURATION_S = 600.0
 
 
@@ -111,6 +111,11 @@ class StateMachine:
         self._retries = config.catch.retries
         self._soft_limit_m = soft_limit_m(config)
         self._drive_limit = config.drive.limit
+        # sizes and checks excitation amplitudes on the plant model (numpy: imported for a machine
+        # that runs, not for every importer of the supervisor package)
+        from daemon.control.excitation_sizing import ExcitationSizing
+
+        self._excitation = ExcitationSizing.from_config(config)
         self._estop_action = (
             Action.DRIVE_OFF if config.stop.category == 0 else Action.CONTROLLED_STOP
         )
@@ -185,16 +190,22 @@ class StateMachine:
                 raise CommandRefused(
                     f"excite: kind must be one of {', '.join(EXCITE_KINDS)} (got {kind!r})"
                 )
-            amplitude = _number(args, "amplitude", "excite")
-            if not 0.0 < amplitude <= self._drive_limit:
-                raise CommandRefused(
-                    f"excite: amplitude must be in (0, {self._drive_limit:g}] (got {amplitude:g})"
-                )
             duration_s = _number(args, "duration_s", "excite")
             if not 0.0 < duration_s <= MAX_EXCITE_DURATION_S:
                 raise CommandRefused(
                     f"excite: duration_s must be in (0, {MAX_EXCITE_DURATION_S:g}] (got {duration_s:g})"
                 )
+            if args.get("amplitude") is None:  # left out: sized for the rig
+                amplitude = self._excitation.default_amplitude(kind, duration_s, self.setpoint_m)
+            else:
+                amplitude = _number(args, "amplitude", "excite")
+                if not 0.0 < amplitude <= self._drive_limit:
+                    raise CommandRefused(
+                        f"excite: amplitude must be in (0, {self._drive_limit:g}] (got {amplitude:g})"
+                    )
+                problem = self._excitation.problem(kind, amplitude, duration_s, self.setpoint_m)
+                if problem is not None:
+                    raise CommandRefused(problem)
             return {"kind": kind, "amplitude": amplitude, "duration_s": duration_s}
         if trigger is Command.RESET:
             if self.output is Output.RAMP:
