@@ -17,21 +17,27 @@ own file when it closes; a starting writer deletes those of dead writers
 issued: :meth:`RunIds.issue` appends one byte (``O_APPEND``) and the new
 length, read back from its own file offset, is the id. The kernel serialises
 appends to a local file and moves each appender's offset to the end of its own
-write, so two writers can never be handed the same id, and issuing one is two
-system calls that wait for no other process: it is safe on the daemon's event
-loop (``Recorder.start_run``), where taking a lock another process holds, or
-SQLite's write lock, is not. A starting writer makes sure the file is at least
-``MAX(run_id)`` long (:meth:`RunIds.at_least`, a one-byte write at that offset,
-which never shortens the file), so ids go on from the runs in the store: after
-a store made before this file existed, after the file was deleted while no one
-was recording, or after a power cut lost its last bytes. Edge cases: an id
-issued to a run that never reached the disk (its writer died within the first
-flush interval, or the store refused the write) is in no run and is issued
-again only if the file is lost; ids follow the order in which runs were
-started, not the order in which their first rows were committed; the file must
-not be deleted while writers run (like SQLite's own ``-wal`` and ``-shm``
-files): a writer starting then would create a new one from ``MAX(run_id)``,
-which misses runs started in the last flush interval and not yet committed.
+write, so two writers can never be handed the same id. Issuing one is two
+system calls and takes no lock that another process could hold while it runs
+or sleeps, so it is safe on the daemon's event loop (``Recorder.start_run``),
+where waiting for a flock, the writer thread or SQLite's write lock is not.
+A starting writer makes sure the file is at least ``MAX(run_id)`` long
+(:meth:`RunIds.at_least`, a one-byte write at that offset, which never
+shortens the file), so ids go on from the runs in the store. Edge cases:
+
+- a store made before this file existed, a file deleted while no one was
+  recording, or one whose last bytes a power cut lost: ids go on from
+  ``MAX(run_id) + 1``, as a writer alone always counted;
+- an id issued to a run that never reached the disk (its writer died within
+  the first flush interval, or the store refused the write) is in no run, and
+  is issued again only if the file is lost;
+- ids follow the order in which runs were started, not the order in which
+  their first rows were committed;
+- the file must not be deleted while writers run (like SQLite's own ``-wal``
+  and ``-shm`` files): a writer starting then would make a new one from
+  ``MAX(run_id)``, which misses runs started within the last flush interval
+  and not yet committed, and could issue one of their ids again.
+
 The same file is also :meth:`RunIds.setup`'s lock: starting writers take it
 exclusive one at a time while they create, migrate and recover the store and
 create their own lock file, so no two migrate at once and no clean-up deletes
@@ -53,7 +59,6 @@ shared between machines is not supported.
 from __future__ import annotations
 
 import contextlib
-import errno
 import fcntl
 import glob
 import os
@@ -113,17 +118,13 @@ def writer_alive(db_path: str | Path, token: str | None) -> bool:
     return not _lock_is_free(path)
 
 
-def remove_dead_writer_locks(db_path: str | Path) -> list[Path]:
-    """Delete the lock files of writers that are gone; returns them. Call under RunIds.setup()."""
-    pattern = f"{glob.escape(str(db_path))}.writer-*.lock"
-    removed = []
-    for name in sorted(glob.glob(pattern)):
+def remove_dead_writer_locks(db_path: str | Path) -> None:
+    """Delete the lock files of writers that are gone. Call it under RunIds.setup()."""
+    for name in glob.glob(f"{glob.escape(str(db_path))}.writer-*.lock"):
         path = Path(name)
         if _lock_is_free(path):
             with contextlib.suppress(OSError):  # gone already, or not ours to delete: harmless
                 path.unlink()
-                removed.append(path)
-    return removed
 
 
 class RunIds:
@@ -172,8 +173,7 @@ class RunIds:
     def issue(self) -> int:
         """A run id no other writer of this store has been or will be given."""
         try:
-            if os.write(self._fd, b"\n") != 1:
-                raise OSError(errno.EIO, "short write")
+            os.write(self._fd, b"\n")
             return os.lseek(self._fd, 0, os.SEEK_CUR)
         except OSError as exc:
             raise RecordingError(
