@@ -27,7 +27,7 @@ from test_recording_store import REPO, integrity, metadata, sample_row, stored_r
 from daemon.recording import ABORTED, Recorder, RecordingError
 from daemon.recording.schema import APPLICATION_ID, MIGRATIONS
 from daemon.recording.store import get_run, list_runs, open_for_reading, run_events
-from daemon.recording.writers import legacy_lock_path, run_ids_path
+from daemon.recording.writer_files import legacy_lock_path, run_ids_path
 
 WRITER_SCRIPT = textwrap.dedent(
     """

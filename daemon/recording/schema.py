@@ -5,7 +5,7 @@ Poise run store by ``PRAGMA application_id``. ``MIGRATIONS[v]`` takes a store
 from version ``v`` to ``v + 1``; version 0 is an empty file. A file written by a
 newer Poise (higher version) or by another program is refused with one line.
 
-Several processes may record into one file at once (daemon/recording/writers.py),
+Several processes may record into one file at once (daemon/recording/writer_files.py),
 so the samples of runs recorded at the same time interleave in ``sample_id``:
 each writer's transaction appends a block of consecutive ids, and the blocks
 of two writers alternate. ``runs.first_sample_id`` and ``runs.last_sample_id``
@@ -173,7 +173,7 @@ def migrate(conn: sqlite3.Connection, path: str) -> int:
     """Bring the store up to SCHEMA_VERSION, one transaction per step; returns the version found.
 
     ``conn`` must be in autocommit mode (``isolation_level=None``). Writers call it
-    one at a time (``RunIds.setup`` in daemon/recording/writers.py), so no two
+    one at a time (``RunIds.setup`` in daemon/recording/writer_files.py), so no two
     processes migrate at once.
     """
     found = check_version(conn, path)

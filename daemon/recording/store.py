@@ -16,7 +16,7 @@ commit-time budget on ordinary disks.
 
 Several writers: each writer process holds a lock of its own and stores its
 token in every run it starts; run ids come from a file beside the store that
-hands out each id once (daemon/recording/writers.py says how, and what the
+hands out each id once (daemon/recording/writer_files.py says how, and what the
 edge cases are). SQLite lets one transaction write at a time: a writer that
 finds another's transaction in progress waits for its commit inside SQLite's
 busy handler (``busy_timeout_s``, on the writer's own thread), and the WAL
@@ -26,7 +26,7 @@ Telling a crashed run from one being written: a run whose ``outcome`` is still
 NULL is either being recorded now or was left open by a writer that died
 (``kill -9``, a crash, a power cut). Readers (:func:`list_runs`, :func:`get_run`)
 ask, for each open run, whether its writer's lock is held
-(:func:`daemon.recording.writers.writer_alive`). If it is, the run is shown as
+(:func:`daemon.recording.writer_files.writer_alive`). If it is, the run is shown as
 being recorded, outcome None. If not, the writer is gone for good, and the
 row is read once more (the writer may have ended the run just before it
 exited): a run still open then is one whose writer died. It is shown as
@@ -52,7 +52,7 @@ from daemon.recording.errors import RecordingError
 from daemon.recording.modes import most_advanced
 from daemon.recording.schema import SAMPLE_COLUMN_NAMES, SCHEMA_VERSION, check_version, migrate
 from daemon.recording.summary import run_summary
-from daemon.recording.writers import writer_alive
+from daemon.recording.writer_files import writer_alive
 
 ABORTED = "aborted"  # outcome of a run whose writer ended without closing it
 WRITE_FAILED = "write_failed"  # outcome of a run cut short because the store could not be written
@@ -76,7 +76,7 @@ def limit_size(conn: sqlite3.Connection, max_db_bytes: int, *, keep_reserve: boo
 def open_for_writing(
     db_path: str | Path, max_db_bytes: int | None = None, busy_timeout_s: float = BUSY_TIMEOUT_S
 ) -> sqlite3.Connection:
-    """Open (creating or migrating) a store; call it inside ``RunIds.setup()`` (writers.py).
+    """Open (creating or migrating) a store; call it inside ``RunIds.setup()`` (writer_files.py).
 
     With ``max_db_bytes`` the store is capped below it by the failure reserve
     (:func:`limit_size`). A statement that finds another writer's transaction

@@ -14,7 +14,7 @@ opens (creates or migrates) the store, marks runs left open by processes that
 have died as ``aborted`` (their ids are in ``recovered_runs``; runs of other
 writers still recording are left alone) and starts the writer thread. Any
 number of processes may record into one store at once
-(daemon/recording/writers.py). It raises :class:`RecordingError` (one line
+(daemon/recording/writer_files.py). It raises :class:`RecordingError` (one line
 naming the file) if any of that fails. Setting up may wait for other writers
 starting at the same moment and for another writer's commit (milliseconds).
 
@@ -37,7 +37,7 @@ starting at the same moment and for another writer's commit (milliseconds).
     Queue the start or end of a run, in order with the samples and events put
     before and after; neither waits for the disk, the writer thread or another
     process. The run id is issued here, from the file beside the store that
-    hands each id out once (:class:`daemon.recording.writers.RunIds`: two
+    hands each id out once (:class:`daemon.recording.writer_files.RunIds`: two
     system calls), so concurrent writers never share one; a writer that records
     alone counts up from ``MAX(run_id) + 1``. Samples put while no run is open are
     discarded and counted as ``unassigned``. When the end is written, the
@@ -115,7 +115,7 @@ from daemon.recording.store import (
     written_run,
 )
 from daemon.recording.summary import run_summary
-from daemon.recording.writers import RunIds, WriterLocks, remove_dead_writer_locks
+from daemon.recording.writer_files import RunIds, WriterLocks, remove_dead_writer_locks
 
 DEFAULT_QUEUE_CAPACITY = 65_536  # about 2 minutes at 500 Hz
 DEFAULT_BATCH_ROWS = 5_000
@@ -270,7 +270,7 @@ class Recorder:
         self._thread.start()
 
     def _set_up(self, busy_timeout_s: float) -> None:
-        """Lock, open, migrate and recover, one starting writer at a time (writers.py)."""
+        """Lock, open, migrate and recover, one starting writer at a time (writer_files.py)."""
         self._run_ids = RunIds(self.db_path)
         locks = conn = None
         try:
