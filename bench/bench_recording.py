@@ -1,14 +1,17 @@
-"""Recorder figures: sustained rows/s, producer cost per put, writer CPU share and commit p99 at 1 kHz.
+"""Recorder figures: sustained rows/s, producer cost per put, writer CPU share and commit p99
+at 1 kHz, and two writer processes recording into one store at once.
 
 Run: .venv/bin/python bench/bench_recording.py [--rows 300000] [--seconds 10]
 Prints figures only; compare them within one run (the machines are shared).
 Goals: >= 200,000 rows/s sustained, <= 2 % of a core at 1 kHz, commit p99 <= 1 ms,
-producer well under 1 us per put.
+producer well under 1 us per put; with two writers, rows per writer-CPU-second
+close to one writer's (each waits for the other's commits, it does not spin).
 """
 
 from __future__ import annotations
 
 import argparse
+import multiprocessing
 import statistics
 import tempfile
 import time
@@ -126,6 +129,41 @@ def one_kilohertz(folder: Path, seconds: float) -> None:
           f"median {call_median_ns:.0f} ns")  # fmt: skip
 
 
+def _one_of_two_writers(db: Path, rows: int, both_ready, results) -> None:
+    """A writer process of two_writers: its rows, queued as fast as it can, once both are ready."""
+    data = [row(i) for i in range(rows)]
+    recorder = Recorder(db, queue_capacity=rows + 10)
+    recorder.start_run(METADATA)
+    both_ready.wait()
+    started = time.perf_counter()
+    put = recorder.put_sample
+    for item in data:
+        put(item)
+    recorder.end_run("completed")
+    recorder.close()
+    stats = recorder.stats()
+    wall_s = time.perf_counter() - started
+    results.put((wall_s, stats.writer_cpu_s, stats.commits, stats.busy_waits))
+
+
+def two_writers(folder: Path, rows: int) -> None:
+    context = multiprocessing.get_context("spawn")
+    both_ready, results = context.Barrier(2), context.Queue()
+    args = (folder / "two.db", rows, both_ready, results)
+    processes = [context.Process(target=_one_of_two_writers, args=args) for _ in range(2)]
+    for process in processes:
+        process.start()
+    figures = [results.get() for _ in processes]
+    for process in processes:
+        process.join()
+    walls, cpus, commits, busy = zip(*figures)
+    per_cpu = " and ".join(f"{rows / cpu:,.0f}" for cpu in cpus)
+    print(f"two writers at once, {rows:,} rows each into one store: "
+          f"{2 * rows / max(walls):,.0f} rows/s together; {per_cpu} rows per writer-CPU-second; "
+          f"commits {commits[0]} and {commits[1]}; "
+          f"store busy a whole timeout {sum(busy)} times")  # fmt: skip
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--rows", type=int, default=300_000, help="rows for the throughput run")
@@ -135,6 +173,7 @@ def main() -> None:
         sustained(Path(folder), args.rows)
         producer_cost(Path(folder), 1_000_000)
         one_kilohertz(Path(folder), args.seconds)
+        two_writers(Path(folder), args.rows)
 
 
 if __name__ == "__main__":

@@ -136,7 +136,7 @@ def test_a_version_1_store_is_migrated_and_keeps_its_runs(tmp_path):
         recorder.put_sample(sample_row(2))
         recorder.end_run("completed")
     conn = sqlite3.connect(db)
-    assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION == 2
+    assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION == 3
     columns = [row[1] for row in conn.execute("PRAGMA table_info(samples)")]
     assert columns[-2:] == ["setpoint_m", "drive_applied"]
     conn.close()
@@ -191,12 +191,19 @@ def test_unwritable_path_gives_one_line_naming_the_file(tmp_path):
     assert str(db) in str(caught.value) and "\n" not in str(caught.value)
 
 
-def test_only_one_recorder_per_store(tmp_path):
+def test_two_recorders_of_one_process_record_into_one_store_side_by_side(tmp_path):
     db = tmp_path / "runs.db"
-    busy = f"already being recorded into by process {os.getpid()}"
-    with Recorder(db), pytest.raises(RecordingError, match=busy):
-        Recorder(db)
-    Recorder(db).close()  # the lock went with the first recorder
+    with Recorder(db) as first, Recorder(db) as second:
+        one, two = first.start_run(metadata()), second.start_run(metadata())
+        for i in range(300):
+            (first if i % 3 else second).put_sample(sample_row(i))
+            if i % 50 == 0:  # commits alternate, so the runs interleave
+                assert first.flush() and second.flush()
+        first.end_run("completed")
+        second.end_run("completed")
+    assert (one, two) == (1, 2)
+    assert stored_rows(db, one) == [sample_row(i) for i in range(300) if i % 3]
+    assert stored_rows(db, two) == [sample_row(i) for i in range(300) if not i % 3]
 
 
 def test_run_record_holds_metadata_counts_and_mode_reached(tmp_path):

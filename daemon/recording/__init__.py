@@ -1,7 +1,9 @@
 """The run store: every sample, event and config snapshot of a run, in one SQLite file per rig.
 
-``Recorder`` (writer.py) is what the daemon uses while running; ``store`` reads
-runs back; ``export`` writes one run to CSV, MAT, NPZ or Parquet.
+``Recorder`` (writer.py) is what the daemon uses while running, and any number
+of processes may record into one store at once (``writer_files`` holds the lock and
+run-id files that allow it); ``store`` reads runs back; ``export`` writes one
+run to CSV, MAT, NPZ or Parquet.
 """
 
 from daemon.recording.errors import RecordingError

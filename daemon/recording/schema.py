@@ -5,11 +5,21 @@ Poise run store by ``PRAGMA application_id``. ``MIGRATIONS[v]`` takes a store
 from version ``v`` to ``v + 1``; version 0 is an empty file. A file written by a
 newer Poise (higher version) or by another program is refused with one line.
 
-Samples of one run occupy one contiguous range of ``sample_id`` (a single
-writer per file, runs strictly one after another); ``runs.first_sample_id`` and
-``runs.last_sample_id`` hold that range, so reading a run is a primary-key range
-scan and inserting needs no secondary index. ``samples.run_id`` is still stored
-so that ad-hoc SQL (``WHERE run_id = 3``) works with any SQLite tool.
+Several processes may record into one file at once (daemon/recording/writer_files.py),
+so the samples of runs recorded at the same time interleave in ``sample_id``:
+each writer's transaction appends a block of consecutive ids, and the blocks
+of two writers alternate. ``runs.first_sample_id`` and ``runs.last_sample_id``
+are the run's own first and last samples, and every sample of the run lies
+between them, but so may samples of other runs. Reading a run is therefore a
+primary-key range scan over that span filtered on ``run_id``
+(``WHERE sample_id BETWEEN ? AND ? AND run_id = ?``): it reads the rows of the
+runs recorded beside it and no others, and inserting needs no secondary index,
+which would cost every sample. A run recorded alone is still one contiguous
+range, and ad-hoc SQL (``WHERE run_id = 3``) works with any SQLite tool.
+
+``runs.writer_token`` (version 3) names the lock file of the process recording
+the run, which is how a reader tells a run being recorded from one whose writer
+died; runs stored before version 3 have none.
 """
 
 from __future__ import annotations
@@ -114,9 +124,12 @@ _SCHEMA_V2 = "\n".join(
     f"ALTER TABLE samples ADD COLUMN {c.name} {c.sql_type};" for c in _SAMPLE_COLUMNS_V2
 )
 
+_SCHEMA_V3 = "ALTER TABLE runs ADD COLUMN writer_token TEXT;"
+
 MIGRATIONS: tuple[Migration, ...] = (
     Migration(0, "create runs, samples and events", _SCHEMA_V1),
     Migration(1, "samples: add setpoint_m and drive_applied", _SCHEMA_V2),
+    Migration(2, "runs: add writer_token (several writers per store)", _SCHEMA_V3),
 )
 SCHEMA_VERSION = len(MIGRATIONS)
 
@@ -159,7 +172,9 @@ def check_version(conn: sqlite3.Connection, path: str) -> int:
 def migrate(conn: sqlite3.Connection, path: str) -> int:
     """Bring the store up to SCHEMA_VERSION, one transaction per step; returns the version found.
 
-    ``conn`` must be in autocommit mode (``isolation_level=None``).
+    ``conn`` must be in autocommit mode (``isolation_level=None``). Writers call it
+    one at a time (``RunIds.setup`` in daemon/recording/writer_files.py), so no two
+    processes migrate at once.
     """
     found = check_version(conn, path)
     for step in MIGRATIONS[found:]:

@@ -1,4 +1,5 @@
-"""Opening the run store for writing (one writer per file) or reading, and reading runs back.
+"""Opening the run store for writing (by any number of processes at once) or reading, and
+reading runs back.
 
 Durability: the store runs in WAL mode with ``synchronous=NORMAL``. A commit then
 appends the transaction to the ``-wal`` file with write() and returns without
@@ -13,35 +14,35 @@ ignores WAL frames after the last valid commit. ``synchronous=FULL`` would
 close that window at the price of one fsync per commit, which breaks the
 commit-time budget on ordinary disks.
 
-One writer per file: the writer holds an exclusive ``flock`` on ``<db>.lock``
-for its lifetime (the kernel drops it when the process dies, however it dies).
-Holding it is what makes it safe to mark runs still open at start-up as
-aborted: no other live process can be recording them.
+Several writers: each writer process holds a lock of its own and stores its
+token in every run it starts; run ids come from a file beside the store that
+hands out each id once (daemon/recording/writer_files.py says how, and what the
+edge cases are). SQLite lets one transaction write at a time: a writer that
+finds another's transaction in progress waits for its commit inside SQLite's
+busy handler (``busy_timeout_s``, on the writer's own thread), and the WAL
+lets readers go on meanwhile.
 
-Telling a crashed run from one being written, when reading: a run whose
-``outcome`` is still NULL is either being recorded now or was left open by a
-writer that died (``kill -9``, a crash, a power cut). Readers (:func:`list_runs`,
-:func:`get_run`) try to take the same lock *shared* while they read the run
-rows. If they cannot, a live writer holds it and the open run is its run
-(it cleaned up any older open run when it started): it is shown as being
-recorded, outcome None. If they can, no writer is alive, and none can start
-while they hold it (a starting writer waits up to ``LOCK_WAIT_S`` for readers),
-so an open run is one whose writer died: it is shown as ``aborted``, ending at
-its last committed sample, exactly as the next writer will mark it in the file
-(``RunRecord.writer_died`` says it is not marked yet). The lock is a kernel
-lock on a local file; a store on a network file system shared between machines
-is not supported.
+Telling a crashed run from one being written: a run whose ``outcome`` is still
+NULL is either being recorded now or was left open by a writer that died
+(``kill -9``, a crash, a power cut). Readers (:func:`list_runs`, :func:`get_run`)
+ask, for each open run, whether its writer's lock is held
+(:func:`daemon.recording.writer_files.writer_alive`). If it is, the run is shown as
+being recorded, outcome None. If not, the writer is gone for good, and the
+row is read once more (the writer may have ended the run just before it
+exited): a run still open then is one whose writer died. It is shown as
+``aborted``, ending at its last committed sample, exactly as the next writer to
+start will mark it in the file (:func:`recover_unfinished_runs`;
+``RunRecord.writer_died`` says it is not marked yet). A starting writer marks
+only the runs whose writers are dead, so runs of writers still recording are
+left alone.
 """
 
 from __future__ import annotations
 
-import contextlib
 import dataclasses
-import fcntl
 import json
 import os
 import sqlite3
-import time
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
@@ -51,79 +52,14 @@ from daemon.recording.errors import RecordingError
 from daemon.recording.modes import most_advanced
 from daemon.recording.schema import SAMPLE_COLUMN_NAMES, SCHEMA_VERSION, check_version, migrate
 from daemon.recording.summary import run_summary
+from daemon.recording.writer_files import writer_alive
 
 ABORTED = "aborted"  # outcome of a run whose writer ended without closing it
 WRITE_FAILED = "write_failed"  # outcome of a run cut short because the store could not be written
 FAILURE_RESERVE_BYTES = 64 * 1024
 """Kept free under a size cap (recording.max_db_mb) to store the failure once the cap is hit."""
-LOCK_WAIT_S = 1.0  # a reader probing the lock holds it for microseconds; ride that out
-
-
-def lock_path(db_path: str | Path) -> Path:
-    return Path(f"{db_path}.lock")
-
-
-def _describe_os_error(exc: OSError) -> str:
-    return exc.strerror or str(exc)
-
-
-class WriterLock:
-    """Exclusive ownership of one run store by one process, via flock on ``<db>.lock``."""
-
-    def __init__(self, db_path: str | Path):
-        path = lock_path(db_path)
-        try:
-            self._fd = os.open(path, os.O_RDWR | os.O_CREAT, 0o644)
-        except OSError as exc:
-            raise RecordingError(
-                f"run store {db_path}: cannot create lock file {path}: {_describe_os_error(exc)}"
-            ) from None
-        deadline = time.monotonic() + LOCK_WAIT_S
-        while True:
-            try:
-                fcntl.flock(self._fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
-                break
-            except BlockingIOError:
-                if time.monotonic() >= deadline:
-                    holder = os.pread(self._fd, 32, 0).decode(errors="replace").strip() or "?"
-                    os.close(self._fd)
-                    raise RecordingError(
-                        f"run store {db_path}: already being recorded into by process {holder}"
-                    ) from None
-                time.sleep(0.01)
-        os.ftruncate(self._fd, 0)
-        os.pwrite(self._fd, f"{os.getpid()}\n".encode(), 0)
-
-    def release(self) -> None:
-        if self._fd >= 0:
-            os.close(self._fd)  # closing drops the flock
-            self._fd = -1
-
-
-@contextlib.contextmanager
-def _writer_alive(db_path: str | Path) -> Iterator[bool]:
-    """Whether a live process holds the store's writer lock; if none does, keep one from
-    starting (the lock held shared) until the block ends. See the module docstring."""
-    try:
-        fd = os.open(lock_path(db_path), os.O_RDONLY)
-    except FileNotFoundError:
-        yield False  # no writer has ever run here
-        return
-    try:
-        try:
-            fcntl.flock(fd, fcntl.LOCK_SH | fcntl.LOCK_NB)
-        except BlockingIOError:
-            yield True
-            return
-        yield False
-    finally:
-        os.close(fd)  # closing drops the shared lock
-
-
-def writer_active(db_path: str | Path) -> bool:
-    """True if some process holds the writer lock of this store (is recording into it now)."""
-    with _writer_alive(db_path) as alive:
-        return alive
+BUSY_TIMEOUT_S = 5.0
+"""How long one wait for another writer's commit may last before SQLite reports the store busy."""
 
 
 def limit_size(conn: sqlite3.Connection, max_db_bytes: int, *, keep_reserve: bool) -> None:
@@ -137,17 +73,23 @@ def limit_size(conn: sqlite3.Connection, max_db_bytes: int, *, keep_reserve: boo
     conn.execute(f"PRAGMA max_page_count = {max(1, budget // page_size)}")
 
 
-def open_for_writing(db_path: str | Path, max_db_bytes: int | None = None) -> sqlite3.Connection:
-    """Open (creating or migrating) a store; the caller must already hold its WriterLock.
+def open_for_writing(
+    db_path: str | Path, max_db_bytes: int | None = None, busy_timeout_s: float = BUSY_TIMEOUT_S
+) -> sqlite3.Connection:
+    """Open (creating or migrating) a store; call it inside ``RunIds.setup()`` (writer_files.py).
 
     With ``max_db_bytes`` the store is capped below it by the failure reserve
-    (:func:`limit_size`). The connection is in autocommit mode (explicit
-    BEGIN/COMMIT) and may be handed to one other thread (the writer thread)
-    after set-up.
+    (:func:`limit_size`). A statement that finds another writer's transaction
+    in progress waits up to ``busy_timeout_s`` for it, then raises
+    ``sqlite3.OperationalError`` (SQLITE_BUSY). The connection is in autocommit
+    mode (explicit BEGIN/COMMIT) and may be handed to one other thread (the
+    writer thread) after set-up.
     """
     path = str(db_path)
     try:
-        conn = sqlite3.connect(path, isolation_level=None, check_same_thread=False)
+        conn = sqlite3.connect(
+            path, timeout=busy_timeout_s, isolation_level=None, check_same_thread=False
+        )
         mode = conn.execute("PRAGMA journal_mode = WAL").fetchone()[0]
         if mode != "wal":
             raise RecordingError(f"run store {path}: cannot switch to WAL mode (got {mode})")
@@ -178,17 +120,23 @@ def open_for_reading(db_path: str | Path) -> sqlite3.Connection:
     return conn
 
 
-def recover_unfinished_runs(conn: sqlite3.Connection) -> list[int]:
-    """Mark runs left open by a writer that died as aborted; returns their ids.
+def recover_unfinished_runs(conn: sqlite3.Connection, db_path: str | Path) -> list[int]:
+    """Mark the open runs whose writers are dead as aborted; returns the ids this call marked.
 
     The end time is the run's last committed sample (start time if none), and
-    the run gets its summary (daemon.recording.summary). Only call this while
-    holding the store's WriterLock.
+    the run gets its summary (daemon.recording.summary) and a ``run.aborted``
+    event. Runs whose writers are alive are left alone. If another process
+    marks a run first, the ``outcome IS NULL`` condition leaves it to that one,
+    so each dead run gets its event once. ``conn`` is a writer's connection.
     """
-    rows = conn.execute("SELECT run_id FROM runs WHERE outcome IS NULL ORDER BY run_id")
-    open_ids = [run_id for (run_id,) in rows]
-    for run_id in open_ids:
-        run = _fetch_run(conn, run_id, writer_alive=False)  # read as aborted: what to store
+    rows = conn.execute(
+        "SELECT run_id, writer_token FROM runs WHERE outcome IS NULL ORDER BY run_id"
+    ).fetchall()
+    marked = []
+    for run_id, token in rows:
+        if writer_alive(db_path, token):
+            continue
+        run = _as_aborted(conn, _fetch_run(conn, run_id))  # its writer is dead: nothing changes it
         data = {
             "reason": "the recording process ended without ending the run",
             "samples_committed": run.samples_written,
@@ -196,16 +144,26 @@ def recover_unfinished_runs(conn: sqlite3.Connection) -> list[int]:
         }
         elapsed_ns = run.ended_unix_ns - run.started_unix_ns
         conn.execute("BEGIN IMMEDIATE")
-        conn.execute(
-            "UPDATE runs SET outcome = ?, ended_unix_ns = ?, summary_json = ? WHERE run_id = ?",
-            (run.outcome, run.ended_unix_ns, json.dumps(run.summary), run_id),
-        )
-        conn.execute(
-            "INSERT INTO events (run_id, t_host_ns, kind, source, data_json) VALUES (?, ?, ?, ?, ?)",
-            (run_id, run.started_host_ns + elapsed_ns, "run.aborted", "recorder", json.dumps(data)),
-        )
-        conn.execute("COMMIT")
-    return open_ids
+        try:
+            updated = conn.execute(
+                "UPDATE runs SET outcome = ?, ended_unix_ns = ?, summary_json = ? "
+                "WHERE run_id = ? AND outcome IS NULL",
+                (run.outcome, run.ended_unix_ns, json.dumps(run.summary), run_id),
+            ).rowcount
+            if updated:
+                conn.execute(
+                    "INSERT INTO events (run_id, t_host_ns, kind, source, data_json) "
+                    "VALUES (?, ?, ?, ?, ?)",
+                    (run_id, run.started_host_ns + elapsed_ns, "run.aborted", "recorder",
+                     json.dumps(data)),
+                )  # fmt: skip
+            conn.execute("COMMIT")
+        except BaseException:
+            conn.rollback()
+            raise
+        if updated:
+            marked.append(run_id)
+    return marked
 
 
 def _elapsed_to_last_sample_ns(started_host_ns: int, last_sample_host_ns: int | None) -> int:
@@ -242,6 +200,8 @@ class RunRecord:
     samples_dropped: int
     events_written: int
     events_dropped: int
+    writer_token: str | None
+    """Names the lock of the process recording the run (None for runs of schema version 2)."""
     first_t_device_us: int | None
     """Device time of the first committed sample (None without samples)."""
     last_t_device_us: int | None
@@ -284,7 +244,7 @@ _RUN_FIELDS = (
     "summary_json", "config_text", "config_format", "software_version", "protocol_version",
     "firmware_version", "operator_notes", "drive_kind", "mode_names_json", "modes_seen_json",
     "first_sample_id", "last_sample_id", "last_sample_host_ns", "samples_written",
-    "samples_dropped", "events_written", "events_dropped",
+    "samples_dropped", "events_written", "events_dropped", "writer_token",
 )  # fmt: skip
 # The first and last samples are found by primary key, so this costs two lookups per run.
 _SELECT_RUNS = (
@@ -295,15 +255,12 @@ _SELECT_RUNS = (
 )
 
 
-def _run_record(conn: sqlite3.Connection, row: tuple, writer_alive: bool) -> RunRecord:
+def _run_record(row: tuple) -> RunRecord:
     values = list(row)
     values[6] = None if row[6] is None else json.loads(row[6])
     values[14] = {int(code): name for code, name in json.loads(row[14])}
     values[15] = json.loads(row[15])
-    run = RunRecord(*values)
-    if run.outcome is None and not writer_alive:
-        return _as_aborted(conn, run)
-    return run
+    return RunRecord(*values)
 
 
 def _as_aborted(conn: sqlite3.Connection, run: RunRecord) -> RunRecord:
@@ -315,29 +272,38 @@ def _as_aborted(conn: sqlite3.Connection, run: RunRecord) -> RunRecord:
     return dataclasses.replace(run, summary=run_summary(conn, run))
 
 
-def _fetch_run(conn: sqlite3.Connection, run_id: int, writer_alive: bool) -> RunRecord | None:
+def _fetch_run(conn: sqlite3.Connection, run_id: int) -> RunRecord | None:
+    """The run as stored (an open run stays open: see _as_read)."""
     row = conn.execute(f"{_SELECT_RUNS} WHERE r.run_id = ?", (run_id,)).fetchone()
-    return None if row is None else _run_record(conn, row, writer_alive)
+    return None if row is None else _run_record(row)
+
+
+def _as_read(conn: sqlite3.Connection, run: RunRecord, db_path: str | Path) -> RunRecord:
+    """The run as a reader shows it: an open run whose writer is dead as aborted."""
+    if run.outcome is not None or writer_alive(db_path, run.writer_token):
+        return run
+    # The writer is gone for good, but it may have ended the run after the row was read.
+    again = _fetch_run(conn, run.run_id)
+    assert again is not None, f"run {run.run_id} left the store {db_path}"
+    return again if again.outcome is not None else _as_aborted(conn, again)
 
 
 def list_runs(conn: sqlite3.Connection, db_path: str | Path) -> list[RunRecord]:
     """Every run in the store at ``db_path`` (``conn`` opened on it), in order of run id."""
-    with _writer_alive(db_path) as writer_alive:
-        rows = conn.execute(f"{_SELECT_RUNS} ORDER BY r.run_id").fetchall()
-        return [_run_record(conn, row, writer_alive) for row in rows]
+    rows = conn.execute(f"{_SELECT_RUNS} ORDER BY r.run_id").fetchall()
+    return [_as_read(conn, _run_record(row), db_path) for row in rows]
 
 
 def get_run(conn: sqlite3.Connection, run_id: int, db_path: str | Path) -> RunRecord:
-    with _writer_alive(db_path) as writer_alive:
-        run = _fetch_run(conn, run_id, writer_alive)
+    run = _fetch_run(conn, run_id)
     if run is None:
         raise RecordingError(f"run {run_id}: no such run in run store {db_path}")
-    return run
+    return _as_read(conn, run, db_path)
 
 
 def written_run(conn: sqlite3.Connection, run_id: int) -> RunRecord:
-    """The run as the writer's connection sees it, mid-transaction (the writer holds the lock)."""
-    run = _fetch_run(conn, run_id, writer_alive=True)
+    """The run as its writer's connection sees it, mid-transaction."""
+    run = _fetch_run(conn, run_id)
     assert run is not None, f"run {run_id} is not in the store its writer is writing"
     return run
 
@@ -345,13 +311,17 @@ def written_run(conn: sqlite3.Connection, run_id: int) -> RunRecord:
 def sample_chunks(
     conn: sqlite3.Connection, run: RunRecord, chunk_rows: int = 50_000
 ) -> Iterator[list[tuple]]:
-    """The run's sample rows (SAMPLE_COLUMN_NAMES order) in recording order, a chunk at a time."""
+    """The run's sample rows (SAMPLE_COLUMN_NAMES order) in recording order, a chunk at a time.
+
+    A primary-key range scan over the run's span, filtered on ``run_id``: runs
+    recorded at the same time interleave there (see daemon/recording/schema.py).
+    """
     if run.first_sample_id is None:
         return
     cursor = conn.execute(
         f"SELECT {', '.join(SAMPLE_COLUMN_NAMES)} FROM samples "
-        "WHERE sample_id BETWEEN ? AND ? ORDER BY sample_id",
-        (run.first_sample_id, run.last_sample_id),
+        "WHERE sample_id BETWEEN ? AND ? AND run_id = ? ORDER BY sample_id",
+        (run.first_sample_id, run.last_sample_id, run.run_id),
     )
     while chunk := cursor.fetchmany(chunk_rows):
         yield chunk

@@ -9,10 +9,14 @@ Use from the daemon::
     recorder.end_run("completed")    # or end_run("completed", {"max_abs_theta_rad": 0.04})
     recorder.close()
 
-``Recorder(db_path, ...)`` opens (creates or migrates) the store, takes the
-store's writer lock, marks runs left open by a dead process as ``aborted``
-(their ids are in ``recovered_runs``) and starts the writer thread. It raises
-:class:`RecordingError` (one line naming the file) if any of that fails.
+``Recorder(db_path, ...)`` takes a writer lock of its own beside the store,
+opens (creates or migrates) the store, marks runs left open by processes that
+have died as ``aborted`` (their ids are in ``recovered_runs``; runs of other
+writers still recording are left alone) and starts the writer thread. Any
+number of processes may record into one store at once
+(daemon/recording/writer_files.py). It raises :class:`RecordingError` (one line
+naming the file) if any of that fails. Setting up may wait for other writers
+starting at the same moment and for another writer's commit (milliseconds).
 
 ``put_sample(row) -> bool``
     ``row`` is a plain tuple in ``schema.SAMPLE_COLUMN_NAMES`` order: seq,
@@ -31,8 +35,11 @@ store's writer lock, marks runs left open by a dead process as ``aborted``
     thread; dropped and counted when the queue is full.
 ``start_run(metadata) -> int`` / ``end_run(outcome, extra=None) -> None``
     Queue the start or end of a run, in order with the samples and events put
-    before and after; neither waits for the disk. Run ids are allocated here,
-    which the writer lock makes safe. Samples put while no run is open are
+    before and after; neither waits for the disk, the writer thread or another
+    process. The run id is issued here, from the file beside the store that
+    hands each id out once (:class:`daemon.recording.writer_files.RunIds`: two
+    system calls), so concurrent writers never share one; a writer that records
+    alone counts up from ``MAX(run_id) + 1``. Samples put while no run is open are
     discarded and counted as ``unassigned``. When the end is written, the
     writer computes the run's summary from the store
     (:func:`daemon.recording.summary.run_summary`: samples, time span, modes,
@@ -51,6 +58,18 @@ up to ``batch_rows`` items into one transaction (samples via executemany, the
 run's counters updated in the same transaction), so a transaction holds at
 most about two flush intervals of samples and a crash loses at most the
 transaction in flight. Queue-full drops are stored in the run record.
+
+Another writer's transaction: SQLite lets one transaction write at a time, so
+``BEGIN IMMEDIATE`` may find the store busy. The writer thread then waits in
+SQLite's busy handler, up to ``busy_timeout_s`` at a time, and if the other
+transaction is still not committed it leaves the queue as it is and tries again
+(``stats().busy_waits`` counts these): nothing is taken from the queue before
+the write lock is held, so waiting loses nothing and raises nothing, and the
+producer goes on queueing (a queue that fills meanwhile drops and counts, as
+always). Each transaction of the run's samples gets consecutive ``sample_id``s
+(the write lock is held from BEGIN to COMMIT, so no other writer inserts in
+between), which is what makes ``last_insert_rowid() - len(rows) + 1`` the first
+id of the batch.
 
 If a write fails (disk full, the file became unwritable, I/O error), the
 transaction is rolled back (the file stays consistent), and in one more
@@ -88,14 +107,15 @@ from daemon.recording.errors import RecordingError
 from daemon.recording.schema import MODE_INDEX, SAMPLE_COLUMN_NAMES, T_HOST_INDEX
 from daemon.recording.store import (
     ABORTED,
+    BUSY_TIMEOUT_S,
     WRITE_FAILED,
-    WriterLock,
     limit_size,
     open_for_writing,
     recover_unfinished_runs,
     written_run,
 )
 from daemon.recording.summary import run_summary
+from daemon.recording.writer_files import RunIds, WriterLocks, remove_dead_writer_locks
 
 DEFAULT_QUEUE_CAPACITY = 65_536  # about 2 minutes at 500 Hz
 DEFAULT_BATCH_ROWS = 5_000
@@ -138,6 +158,8 @@ class RecorderStats:
     commit_p99_s: float | None
     """99th percentile of the last 1024 transactions, BEGIN to COMMIT."""
     writer_cpu_s: float
+    busy_waits: int
+    """Times the store stayed busy (another writer's transaction) for a whole busy_timeout_s."""
     run_id: int | None
     active: bool
     """A run is open and being written (False after a write failure)."""
@@ -201,6 +223,7 @@ class Recorder:
         batch_rows: int = DEFAULT_BATCH_ROWS,
         flush_interval_s: float = DEFAULT_FLUSH_INTERVAL_S,
         max_db_bytes: int | None = None,
+        busy_timeout_s: float = BUSY_TIMEOUT_S,
         host_clock_ns: Callable[[], int] = time.monotonic_ns,
         on_error: Callable[[str], None] | None = None,
     ):
@@ -212,17 +235,7 @@ class Recorder:
         self._on_error = on_error
         self._max_db_bytes = max_db_bytes
 
-        self._lock = WriterLock(db_path)
-        try:
-            self._conn = open_for_writing(db_path, max_db_bytes)
-            self.recovered_runs = recover_unfinished_runs(self._conn)
-            (last_run_id,) = self._conn.execute("SELECT MAX(run_id) FROM runs").fetchone()
-        except sqlite3.Error as exc:
-            self._lock.release()
-            raise RecordingError(f"run store {self.db_path}: {exc}") from None
-        except RecordingError:
-            self._lock.release()
-            raise
+        self._set_up(busy_timeout_s)
 
         # Producer side (control cycle thread; events from any thread under _special_lock).
         self._queue: deque = deque()
@@ -230,7 +243,6 @@ class Recorder:
         self._events_dropped = 0
         self._specials_put = 0  # events and run starts/ends appended so far
         self._special_lock = threading.Lock()
-        self._next_run_id = (last_run_id or 0) + 1
         self._open_run_id: int | None = None
 
         # Writer side (read by stats(); ints and references are read atomically).
@@ -244,6 +256,7 @@ class Recorder:
         self._last_commit_unix_ns: int | None = None
         self._commit_times_s: deque[float] = deque(maxlen=COMMIT_TIMES_KEPT)
         self._writer_cpu_s = 0.0
+        self._busy_waits = 0
         self._error: str | None = None
         self._batch_samples = 0  # counted into the totals above only once the batch commits
         self._batch_events = 0
@@ -255,6 +268,29 @@ class Recorder:
         self._closed = False
         self._thread = threading.Thread(target=self._write_loop, name="poise-recorder", daemon=True)
         self._thread.start()
+
+    def _set_up(self, busy_timeout_s: float) -> None:
+        """Lock, open, migrate and recover, one starting writer at a time (writer_files.py)."""
+        self._run_ids = RunIds(self.db_path)
+        locks = conn = None
+        try:
+            with self._run_ids.setup():
+                locks = WriterLocks(self.db_path)
+                conn = open_for_writing(self.db_path, self._max_db_bytes, busy_timeout_s)
+                self.recovered_runs = recover_unfinished_runs(conn, self.db_path)
+                remove_dead_writer_locks(self.db_path)
+                (last_run_id,) = conn.execute("SELECT MAX(run_id) FROM runs").fetchone()
+                self._run_ids.at_least(last_run_id or 0)
+        except (sqlite3.Error, RecordingError) as exc:
+            if conn is not None:
+                conn.close()
+            if locks is not None:
+                locks.release()
+            self._run_ids.close()
+            if isinstance(exc, RecordingError):
+                raise
+            raise RecordingError(f"run store {self.db_path}: {exc}") from None
+        self._locks, self._conn = locks, conn
 
     @classmethod
     def from_settings(
@@ -311,7 +347,7 @@ class Recorder:
             raise RecordingError(
                 f"run metadata drive_kind: must be 'voltage' or 'force' (got {metadata.drive_kind!r})"
             )
-        run_id = self._next_run_id
+        run_id = self._run_ids.issue()
         with self._special_lock:
             self._put_special(
                 _StartRun(
@@ -323,7 +359,6 @@ class Recorder:
                     self._events_dropped,
                 )
             )
-        self._next_run_id += 1
         self._open_run_id = run_id
         return run_id
 
@@ -374,7 +409,8 @@ class Recorder:
                 f"({len(self._queue)} items still queued)"
             )
         self._conn.close()
-        self._lock.release()
+        self._locks.release()
+        self._run_ids.close()
         self._closed = True
 
     def __enter__(self) -> Self:
@@ -398,6 +434,7 @@ class Recorder:
             last_commit_unix_ns=self._last_commit_unix_ns,
             commit_p99_s=p99,
             writer_cpu_s=self._writer_cpu_s,
+            busy_waits=self._busy_waits,
             run_id=self._open_run_id,
             active=self._open_run_id is not None and self._error is None,
             error=self._error,
@@ -412,29 +449,42 @@ class Recorder:
                 self._wake.wait(self._flush_interval_s)
                 self._wake.clear()
             closing = self._closing
-            count = min(len(queue), self._batch_rows)
-            if count:
-                popleft = queue.popleft
-                items = [popleft() for _ in range(count)]
+            if queue:
                 if self._error is None:
-                    self._write_batch(items)
+                    self._write_batch()
                 else:
-                    self._discard(items)
+                    self._discard(self._take_batch())
             self._writer_cpu_s = time.thread_time()
             if closing and not queue:
                 return
 
-    def _write_batch(self, items: list) -> None:
-        """Write one batch as one transaction; on failure roll it back and stop recording."""
-        has_specials = self._specials_put != self._specials_taken
+    def _take_batch(self) -> list:
+        popleft = self._queue.popleft
+        return [popleft() for _ in range(min(len(self._queue), self._batch_rows))]
+
+    def _write_batch(self) -> None:
+        """Write one batch as one transaction; on failure roll it back and stop recording.
+
+        The batch leaves the queue only once this writer holds the write lock: while
+        another writer's transaction keeps the store busy, everything stays queued.
+        """
         conn = self._conn
+        started_s = time.perf_counter()
+        try:
+            conn.execute("BEGIN IMMEDIATE")  # waits up to busy_timeout_s for another writer
+        except sqlite3.OperationalError as exc:
+            if exc.sqlite_errorcode & 0xFF == sqlite3.SQLITE_BUSY:
+                self._busy_waits += 1
+                return
+            self._fail(exc, self._take_batch())
+            return
+        items = self._take_batch()
+        has_specials = self._specials_put != self._specials_taken
         self._batch_samples = 0
         self._batch_events = 0
         self._batch_unassigned = 0
         self._batch_flushes: list[threading.Event] = []
-        started_s = time.perf_counter()
         try:
-            conn.execute("BEGIN IMMEDIATE")
             if has_specials:
                 self._write_mixed(items)
             else:
@@ -514,7 +564,8 @@ class Recorder:
         self._conn.execute(
             "INSERT INTO runs (run_id, rig_id, started_unix_ns, started_host_ns, config_text, "
             "config_format, software_version, protocol_version, firmware_version, operator_notes, "
-            "drive_kind, mode_names_json) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            "drive_kind, mode_names_json, writer_token) "
+            "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
             (
                 start.run_id,
                 meta.rig_id,
@@ -528,6 +579,7 @@ class Recorder:
                 meta.operator_notes,
                 meta.drive_kind,
                 json.dumps([[int(code), str(name)] for code, name in meta.mode_names.items()]),
+                self._locks.token,
             ),
         )
         placeholders = ", ".join("?" * len(SAMPLE_COLUMN_NAMES))
