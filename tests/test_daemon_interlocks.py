@@ -88,6 +88,7 @@ async def test_cut_link_trips_link_lost(tmp_path):
         assert service.supervisor.machine.state is State.DISCONNECTED
 
 
+@pytest.mark.realtime
 async def test_corrupted_frames_above_the_allowed_rate_trip_link_crc(tmp_path):
     # The line garbles nothing until the rig is holding; then every second frame. In real time
     # (a lockstep rig would wait for the answer to a lost frame), with the default timeouts: the

@@ -32,6 +32,8 @@ from daemon.api.client import ApiClient, wait_for_daemon
 from daemon.errors import CommandRefused
 from protocol import F_WATCHDOG, ST_ARMED, FaultReport, FrameDecoder, Telemetry
 
+pytestmark = pytest.mark.realtime
+
 POISE = [sys.executable, "-m", "daemon.cli"]
 WATCHDOG_MS = 50  # the default, as every timeout here
 EDITS = {"has_limit_switches": "false", "device_watchdog_ms": str(WATCHDOG_MS)}

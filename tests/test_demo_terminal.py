@@ -20,9 +20,9 @@ from test_daemon_support import REPO, write_rig_config
 from daemon.recording.store import get_run, open_for_reading
 
 TMUX = shutil.which("tmux")
-pytestmark = pytest.mark.skipif(
+pytestmark = [pytest.mark.realtime, pytest.mark.skipif(
     TMUX is None, reason="tmux not found: the real-terminal check of `poise demo` needs tmux"
-)
+)]
 
 COLUMNS, ROWS = 140, 44
 WAIT_LIMIT_S = 60.0  # a hang guard, not a speed requirement

@@ -27,7 +27,7 @@ def test_demo_rig_session_balances_with_every_sample_recorded(tmp_path, capsys):
     assert summary["trips"] == []
     assert summary["balance_s"] >= 8.0
     assert summary["samples"] > 0
-    assert summary["samples_recorded"] == summary["samples"]
+    assert summary["samples_recorded"] == summary["samples"] + summary["samples_unanswered"]
     assert summary["dropped_samples"] == 0
     # The catch window is 20 deg and the fall window 35 deg: a balance that stayed up is far inside.
     assert summary["balance_rms_angle_deg"] < 5.0
@@ -79,7 +79,7 @@ def test_session_json_is_strict_json_with_the_documented_fields(tmp_path, capsys
         capsys, "session", "--config", str(config), "--sim", "--duration", "1", "--json"
     )
     for key in ("outcome", "swing_up_s", "balance_s", "balance_rms_angle_deg", "balance_rms_x_m",
-                "max_abs_x_m", "samples", "samples_recorded", "dropped_samples", "trips",
+                "max_abs_x_m", "samples", "samples_unanswered", "samples_recorded", "dropped_samples", "trips",
                 "latency_us", "run_id", "recording"):
         assert key in summary
     assert set(summary["latency_us"]) == {"p50", "p99", "max"}

@@ -72,7 +72,8 @@ class SessionResult:
     run_id: int | None = None
     swing_up_s: float | None = None
     balance_s: float = 0.0
-    samples: int = 0
+    samples: int = 0  # answered, each with one Drive frame
+    unanswered: int = 0  # overtaken in their read by a newer one: recorded, not answered
     trips: list[dict] = field(default_factory=list)
     loop: dict = field(default_factory=dict)  # the daemon's loop lag and read gaps at the end
 
@@ -95,7 +96,7 @@ async def run_session(
     result = SessionResult(outcome=BALANCED)
     prompts: list[asyncio.Task] = []
     result.run_id = service.start_recording("poise session")
-    samples_before = cycle.samples
+    samples_before, missed_before = cycle.samples, cycle.missed
     t_balance: float | None = None
     try:
         # Begin at a set time of the rig's clock: a seeded simulated rig (whose noise depends on
@@ -144,6 +145,7 @@ async def run_session(
     if result.trips and result.outcome == BALANCED:
         result.outcome = "tripped"
     result.samples = cycle.samples - samples_before
+    result.unanswered = cycle.missed - missed_before
     result.loop = service.loop_status(service.timing_digest())
     service.end_recording(result.outcome, {
         "outcome": result.outcome, "detail": result.detail, "swing_up_s": result.swing_up_s,
@@ -271,6 +273,7 @@ def summarise_run(db_path: str, result: SessionResult) -> dict:
         "balance_rms_x_m": rms(x_sq),
         "max_abs_x_m": max_abs_x,
         "samples": result.samples,
+        "samples_unanswered": result.unanswered,
         "samples_recorded": run.samples_written,
         "dropped_samples": run.samples_dropped,
         "trips": result.trips,
