@@ -36,8 +36,8 @@ from dataclasses import replace
 from callgrind import mark, region_instructions  # bench/callgrind.py
 
 import protocol
-from daemon.commands.sim import rig_spec
 from daemon.config import demo_config_path, load_config
+from daemon.config.plant import rig_spec
 from sim_device.plant import drive_gains
 from sim_device.rig import RigSpec, SimulatedRig
 from sim_device.transports import InProcessPipe, PtyTransport, Transport

@@ -78,6 +78,7 @@ __all__ = [
     "linearise",
     "pendulum_counts",
     "pendulum_energy",
+    "pendulum_energy_j",
     "state_derivative",
     "theta_from_counts",
     "total_energy",
@@ -212,19 +213,26 @@ def linearise(
     return a_mat, b_vec
 
 
-def pendulum_energy(params: PlantParams, state: State) -> float:
-    """The pendulum's energy in the cart's frame, joules, zero hanging at rest.
+def pendulum_energy_j(
+    pivot_inertia_kgm2: float, mgl: float, theta_rad: float, omega_radps: float
+) -> float:
+    """The pendulum's energy in the cart's frame, joules: ``1/2 J w^2 + m g l (cos th - 1)``.
 
-    ``1/2 J w^2 + m g l (1 + cos th)``: ``2 m g l`` upright at rest. This is the
-    quantity energy-based swing-up regulates.
+    The one definition in Poise, with one zero point: upright at rest (the state swing-up
+    brings the pendulum to, so the swing-up laws regulate this to 0); hanging at rest it is
+    ``-2 m g l``. ``J`` is the inertia about the pivot, ``mgl`` is ``m g l``.
     """
-    _x, _v, th, w = state
-    ml = params.pendulum_mass_kg * params.com_distance_m
-    return 0.5 * params.pivot_inertia_kgm2 * w * w + ml * params.gravity_mps2 * (1.0 + math.cos(th))
+    return 0.5 * pivot_inertia_kgm2 * omega_radps * omega_radps + mgl * (math.cos(theta_rad) - 1.0)
+
+
+def pendulum_energy(params: PlantParams, state: State) -> float:
+    """:func:`pendulum_energy_j` of the pendulum of ``params`` in ``state``."""
+    mgl = params.pendulum_mass_kg * params.com_distance_m * params.gravity_mps2
+    return pendulum_energy_j(params.pivot_inertia_kgm2, mgl, state[2], state[3])
 
 
 def total_energy(params: PlantParams, state: State) -> float:
-    """Total mechanical energy, joules, zero with the cart still and the pendulum hanging.
+    """Total mechanical energy, joules, zero with the cart still and the pendulum upright at rest.
 
     Kinetic energy of cart (with reflected rotor), pendulum translation and
     rotation, plus the pendulum's potential energy: ``T + V`` of the docstring.

@@ -40,7 +40,6 @@ def swings_up_in_one_swing(accel_limit_in_g: float, dt: float = 1e-4) -> bool:
     params = point_mass_pendulum()
     plant = Plant(params, (0.0, 0.0, math.pi, 0.0), substeps=1)
     drive = AccelerationDrive(params)
-    mgl = params.pendulum_mass_kg * params.com_distance_m * G
     first_direction = None
     for _ in range(round(5.0 / dt)):
         _x, v, th, w = plant.state
@@ -50,7 +49,7 @@ def swings_up_in_one_swing(accel_limit_in_g: float, dt: float = 1e-4) -> bool:
             first_direction = w > 0.0
         elif first_direction is not None and (w > 0.0) != first_direction:
             return False
-        energy_error = 2 * mgl - pendulum_energy(params, plant.state)  # E0 - E
+        energy_error = -pendulum_energy(params, plant.state)  # E0 - E, E0 = 0 upright at rest
         a = math.copysign(accel_limit_in_g * G, energy_pumping_accel(energy_error, w, math.cos(th), 1.0))
         plant.step(drive.command_for(a, v, math.sin(th), math.cos(th), w), dt)
     return False
@@ -79,12 +78,12 @@ def test_energy_control_brings_the_frictionless_pendulum_to_the_upright_energy(c
     dt = 0.002
     for _ in range(round(15.0 / dt)):
         plant.step(law.update(*plant.state), dt)
-    upright = 2 * params.pendulum_mass_kg * params.com_distance_m * G  # plant's energy upright at rest
+    two_mgl = 2 * params.pendulum_mass_kg * params.com_distance_m * G  # climb from hanging to upright
     energies = []
     for _ in range(round(2.0 / dt)):
         plant.step(law.update(*plant.state), dt)
-        energies.append(pendulum_energy(params, plant.state))
-    assert max(abs(e - upright) for e in energies) < 0.01 * upright
+        energies.append(pendulum_energy(params, plant.state))  # 0 upright at rest
+    assert max(abs(e) for e in energies) < 0.01 * two_mgl
 
 
 @pytest.mark.parametrize("path", RIGS)
@@ -124,7 +123,7 @@ def test_pumping_grows_the_swing_amplitude_every_half_swing(path):
             peak = 0.0
         peak = max(peak, abs(p))
         last_p = p
-        if pendulum_energy(cs.params, loop.plant.state) > 2 * mgl * 0.9:  # trimming from here on
+        if pendulum_energy(cs.params, loop.plant.state) > -2 * mgl * 0.1:  # trimming from here on
             break
     assert len(amplitudes) >= 4
     assert all(b > a for a, b in itertools.pairwise(amplitudes)), amplitudes
@@ -217,9 +216,9 @@ def test_pumping_on_a_short_track_with_a_weak_drive_keeps_to_its_travel(tmp_path
     mgl = cs.params.pendulum_mass_kg * cs.params.com_distance_m * G
     for _ in range(round(20.0 / loop.dt_s)):
         loop.advance(cs.swing_up.update(*loop.measured))
-        if pendulum_energy(cs.params, loop.plant.state) > 2 * mgl * 0.9:  # trimming from here on
+        if pendulum_energy(cs.params, loop.plant.state) > -2 * mgl * 0.1:  # trimming from here on
             break
-    assert pendulum_energy(cs.params, loop.plant.state) > 2 * mgl * 0.9
+    assert pendulum_energy(cs.params, loop.plant.state) > -2 * mgl * 0.1
     assert cs.swing_up.switches >= 4
     assert loop.max_abs_x_m < cs.soft_limit_m * config.swing_up.track_use_fraction
 
@@ -232,7 +231,7 @@ def test_an_explicit_pump_offset_outside_the_travel_is_one_line_naming_the_field
     assert result.returncode == 2
     assert "Traceback" not in result.stderr
     assert result.stderr.splitlines() == [
-        f"poise: {path}: swing_up.pump_offset_m: 0.1 m is not inside the swing-up travel limit ±0.055 m, "
-        "which is swing_up.track_use_fraction 0.5 of the soft limit ±0.110 m; leave it out to have it "
-        "derived (0.7 of the travel limit)"
+        (f"poise: {path}: swing_up.pump_offset_m: 0.1 m is not inside the swing-up travel limit "
+         "±0.055 m, which is swing_up.track_use_fraction 0.5 of the soft limit ±0.110 m; leave it "
+         "out to have it derived (0.7 of the travel limit)")
     ]

@@ -116,7 +116,7 @@ def test_left_out_the_deceleration_is_the_most_the_drive_surely_gives_the_stop(t
     assert FOLLOWER_ACCEL_FACTOR * decel <= found
     assert FOLLOWER_ACCEL_FACTOR * decel >= 0.95 * found
     assert stop_decel_problem(config, params) is None
-    assert [value.field for value in config.derived][0] == "stop.decel_mps2"
+    assert config.derived[0].field == "stop.decel_mps2"
     assert config.derived[0].value == decel and "from the drive" in config.derived[0].source
 
 

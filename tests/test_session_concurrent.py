@@ -28,7 +28,7 @@ def test_two_sessions_started_at_once_with_one_config_both_complete_and_are_both
             [sys.executable, "-m", "daemon.cli", "session", "--sim", "--duration", "2",
              "--seed", str(seed), "--config", "rig.toml", "--json"],
             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=tmp_path,
-        )  # fmt: skip
+        )
         for seed in (1, 2)
     ]
     finished = [session.communicate(timeout=300) for session in sessions]

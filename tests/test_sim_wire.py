@@ -18,8 +18,8 @@ import pytest
 import serial
 
 import protocol as p
-from daemon.commands.sim import rig_spec
 from daemon.config import demo_config_path, load_config
+from daemon.config.plant import rig_spec
 from sim_device.faults import (
     DriverFault,
     EncoderGlitch,

@@ -224,8 +224,8 @@ def test_reset_is_refused_while_the_controlled_stop_still_runs():
         (
             Command.EXCITE,
             {"kind": "step", "amplitude": 2.0, "duration_s": 10.0},
-            r"excite: a 10 s step of amplitude 2 V is predicted to take the cart past the soft limits "
-            r"±0\.360 m; the largest safe amplitude here is 0\.\d+ V",
+            (r"excite: a 10 s step of amplitude 2 V is predicted to take the cart past the soft "
+             r"limits ±0\.360 m; the largest safe amplitude here is 0\.\d+ V"),
         ),
     ],
 )

@@ -91,8 +91,8 @@ def _print_table(summary: dict) -> None:
         ("balance rms x", show(summary["balance_rms_x_m"], ".4f") + " m"),
         ("max |x| in balance", show(summary["max_abs_x_m"], ".4f") + " m"),
         ("samples answered / unanswered / recorded / dropped",
-         f"{summary['samples']} / {summary['samples_unanswered']} / {summary['samples_recorded']} / "
-         f"{summary['dropped_samples']}"),
+         (f"{summary['samples']} / {summary['samples_unanswered']} / {summary['samples_recorded']} / "
+         f"{summary['dropped_samples']}")),
         ("trips", ", ".join(f"{t['reason']} at {t['t_s']:.3f} s" for t in summary["trips"]) or "none"),
         ("latency p50 / p99 / max",
          f"{show(latency['p50'], '.1f')} / {show(latency['p99'], '.1f')} / {show(latency['max'], '.1f')} us"),

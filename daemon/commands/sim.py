@@ -18,9 +18,7 @@ from daemon.commands import add_config_argument, config_path
 from daemon.errors import OperatorError
 
 if TYPE_CHECKING:
-    from daemon.config import PoiseConfig
     from sim_device.faults import FaultEvent, FaultPlan
-    from sim_device.rig import RigSpec
 
 NAME = "sim"
 HELP = "run a simulated rig on a pty or a TCP port until Ctrl-C (prints where to connect)"
@@ -66,42 +64,6 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="horizontal impulse (N s) on the cart")
     faults.add_argument("--initial-angle-deg", metavar="D",
                         help="start the pendulum at D degrees (0 upright, 180 hanging)")
-
-
-def rig_spec(
-    config: PoiseConfig,
-    encoder_noise_counts: float = 0.0,
-    jitter_us: float = 0.0,
-    supply_v: float | None = None,
-) -> RigSpec:
-    """The simulated rig a config describes (plant, encoders, hello identity), plus sensor imperfections.
-
-    ``supply_v`` fits a supply voltage measurement reading that voltage (None: not fitted).
-
-    The daemon's built-in simulated rig uses this too, so ``poise sim`` and
-    ``poise run --sim`` simulate the same rig.
-    """
-    from daemon.config.plant import plant_params
-    from sim_device.device import DeviceIdentity
-    from sim_device.rig import RigSpec
-    from sim_device.sensors import SensorParams
-
-    return RigSpec(
-        plant=plant_params(config),
-        sensors=SensorParams(
-            cart_counts_per_m=config.encoders.cart_counts_per_m,
-            pendulum_counts_per_rev=config.encoders.pendulum_counts_per_rev,
-            cart_noise_counts=encoder_noise_counts,
-            pendulum_noise_counts=encoder_noise_counts,
-            jitter_us=jitter_us,
-            supply_v=supply_v,
-        ),
-        identity=DeviceIdentity(
-            device_id=config.rig.id,
-            sample_rate_hz=config.sampling.rate_hz,
-            watchdog_ms=config.sampling.device_watchdog_ms,
-        ),
-    )
 
 
 def _number(option: str, text: str, low: float = -math.inf, high: float = math.inf) -> float:
@@ -210,6 +172,7 @@ def run(args: argparse.Namespace) -> int:
     import asyncio
 
     from daemon.config import load_config
+    from daemon.config.plant import rig_spec
     from daemon.runtime import event_loop
     from sim_device.rig import SimulatedRig
     from sim_device.transports import PtyTransport, TcpTransport

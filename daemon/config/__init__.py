@@ -32,8 +32,8 @@ from daemon.config.control import (
     HomingSettings,
     SwingUpSettings,
 )
-from daemon.config.problems import ConfigError, ConfigErrors, describe
 from daemon.config.derived import DerivedValue, resolve_derived
+from daemon.config.problems import ConfigError, ConfigErrors, describe
 from daemon.config.rig import (
     CartSettings,
     DriveSettings,

@@ -60,7 +60,9 @@ def _upper_bound(section: type, name: str) -> float:
 
 def resolve_derived(config: PoiseConfig) -> tuple[PoiseConfig, list[str]]:
     """``config`` with its derived values filled in, and the problems (one line each) that make it unusable."""
-    from daemon.config.plant import plant_params  # the plant model (numpy), only once a config is read
+    from daemon.config.plant import (
+        plant_params,  # the plant model (numpy), only once a config is read
+    )
     from daemon.control.stop_capability import derived_stop_decel
 
     problems: list[str] = []

@@ -1,4 +1,5 @@
-"""Map a validated rig config onto the plant model's parameters (the rig's one parameter set).
+"""Map a validated rig config onto the plant model's parameters (the rig's one parameter set),
+and onto the whole simulated rig those parameters describe (:func:`rig_spec`).
 
 No silent defaults for the plant: every config field that reaches
 :class:`~sim_device.plant.PlantParams` here (track, cart, pendulum, drive) is
@@ -24,8 +25,9 @@ from sim_device.plant import DriveParams, PlantParams, TrackParams
 
 if TYPE_CHECKING:
     from daemon.config import PoiseConfig
+    from sim_device.rig import RigSpec
 
-__all__ = ["plant_params"]
+__all__ = ["plant_params", "rig_spec"]
 
 
 def plant_params(config: PoiseConfig) -> PlantParams:
@@ -53,5 +55,40 @@ def plant_params(config: PoiseConfig) -> PlantParams:
             length_m=config.track.length_m,
             switch_inset_m=config.track.switch_inset_m,
             has_limit_switches=config.track.has_limit_switches,
+        ),
+    )
+
+
+def rig_spec(
+    config: PoiseConfig,
+    encoder_noise_counts: float = 0.0,
+    jitter_us: float = 0.0,
+    supply_v: float | None = None,
+) -> RigSpec:
+    """The simulated rig a config describes (plant, encoders, hello identity), plus sensor imperfections.
+
+    ``supply_v`` fits a supply voltage measurement reading that voltage (None: not fitted).
+
+    ``poise sim`` and the daemon's built-in simulated rig (``poise run --sim``) both build
+    their rig here, so they simulate the same rig.
+    """
+    from sim_device.device import DeviceIdentity
+    from sim_device.rig import RigSpec
+    from sim_device.sensors import SensorParams
+
+    return RigSpec(
+        plant=plant_params(config),
+        sensors=SensorParams(
+            cart_counts_per_m=config.encoders.cart_counts_per_m,
+            pendulum_counts_per_rev=config.encoders.pendulum_counts_per_rev,
+            cart_noise_counts=encoder_noise_counts,
+            pendulum_noise_counts=encoder_noise_counts,
+            jitter_us=jitter_us,
+            supply_v=supply_v,
+        ),
+        identity=DeviceIdentity(
+            device_id=config.rig.id,
+            sample_rate_hz=config.sampling.rate_hz,
+            watchdog_ms=config.sampling.device_watchdog_ms,
         ),
     )

@@ -17,16 +17,10 @@ from daemon.control.swing_energy import EnergySwingUp
 from daemon.control.swing_pump import PumpSwingUp
 from sim_device.plant import PlantParams
 
-__all__ = ["ControlSet", "build_control_set", "soft_limit_m"]
+__all__ = ["ControlSet", "build_control_set"]
 
 # Pumping stops once the energy would bring the pendulum within this share of the catch window.
 _PUMP_BAND_SHARE = 0.9
-
-
-def soft_limit_m(config: PoiseConfig) -> float:
-    """Distance from the centre to the soft travel limits: inside the limit switches by the interlock inset."""
-    track = config.track
-    return track.length_m / 2 - track.switch_inset_m - config.interlocks.soft_limit_inset_m
 
 
 @dataclass
@@ -59,7 +53,7 @@ def build_control_set(
             est.encoder_noise_counts,
         )
     estimator = StateEstimator(scaling, dt, est.difference_cutoff_hz, kalman, math.radians(est.kalman_region_deg))
-    soft = soft_limit_m(config)
+    soft = config.soft_limit_m
     travel = swing_up_travel_m(config)
     law = law or config.swing_up.law
     if law == "energy":

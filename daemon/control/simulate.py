@@ -113,7 +113,7 @@ class SwingUpThenBalance:
 def swing_up_until_caught(loop: ClosedLoop, sequence: SwingUpThenBalance, deadline_s: float) -> list[float]:
     """Run until balance takes over; the swing amplitudes (true angle from hanging) until the last 10 % of energy."""
     params = loop.plant.params
-    upright = 2 * params.pendulum_mass_kg * params.com_distance_m * params.gravity_mps2
+    climb = 2 * params.pendulum_mass_kg * params.com_distance_m * params.gravity_mps2  # hanging to upright
     amplitudes, peak, last_p, pumping = [], 0.0, 0.0, True
     for _ in range(round(deadline_s / loop.dt_s)):
         loop.advance(sequence(*loop.measured))
@@ -125,5 +125,5 @@ def swing_up_until_caught(loop: ClosedLoop, sequence: SwingUpThenBalance, deadli
                 amplitudes.append(peak)
                 peak = 0.0
             peak, last_p = max(peak, abs(p)), p
-            pumping = pendulum_energy(params, loop.plant.state) < 0.9 * upright
+            pumping = pendulum_energy(params, loop.plant.state) < -0.1 * climb  # not yet 90 % of the way up
     return amplitudes

@@ -66,7 +66,7 @@ from daemon.config.control import SwingUpSettings
 from daemon.control.drive_model import AccelerationDrive, clamp
 from daemon.control.encoders import wrap_angle
 from daemon.control.track_guard import TrackGuard
-from sim_device.plant import PlantParams
+from sim_device.plant import PlantParams, pendulum_energy_j
 
 __all__ = ["EnergySwingUp", "energy_pumping_accel", "pumping_accel_limit"]
 
@@ -97,9 +97,9 @@ class EnergySwingUp:
         "_drive",
         "_gain",
         "_guard",
-        "_half_jp",
         "_hysteresis",
         "_inv_2mgl",
+        "_jp",
         "_kv",
         "_kx",
         "_loss_scale",
@@ -121,7 +121,7 @@ class EnergySwingUp:
         self._gain = settings.energy_gain * params.gravity_mps2 / w0
         self._kx = settings.position_gain_per_s2
         self._kv = settings.velocity_gain_per_s
-        self._half_jp = 0.5 * jp
+        self._jp = jp
         self._inv_2mgl = 1.0 / (2.0 * self._mgl)
         self._loss_scale = 4.0 * params.pivot_viscous_nms_per_rad * w0
         # the first push from rest swings the pendulum by 2 atan(a_p / g), so c peaks near 2 atan(a_p / g) w0
@@ -133,7 +133,7 @@ class EnergySwingUp:
 
     def energy(self, theta: float, omega: float) -> float:
         """``E`` of the module docstring, joules (0 upright at rest)."""
-        return self._half_jp * omega * omega + self._mgl * (math.cos(theta) - 1.0)
+        return pendulum_energy_j(self._jp, self._mgl, theta, omega)
 
     @property
     def target_energy_j(self) -> float:

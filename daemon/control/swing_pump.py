@@ -74,7 +74,7 @@ from daemon.control.drive_model import AccelerationDrive, clamp
 from daemon.control.encoders import wrap_angle
 from daemon.control.swing_energy import EnergySwingUp
 from daemon.control.track_guard import TrackGuard
-from sim_device.plant import PlantParams
+from sim_device.plant import PlantParams, pendulum_energy_j
 
 __all__ = ["PumpSwingUp"]
 
@@ -103,7 +103,6 @@ class PumpSwingUp:
         "_drive",
         "_dt",
         "_guard",
-        "_half_jp",
         "_jp",
         "_last_crossing_t",
         "_last_p",
@@ -143,7 +142,6 @@ class PumpSwingUp:
         self._2wc = 2.0 * wc
         self._offset = settings.pump_offset_m
         self._dt = dt_s
-        self._half_jp = 0.5 * params.pivot_inertia_kgm2
         self._ml = params.pendulum_mass_kg * params.com_distance_m
         self._jp = params.pivot_inertia_kgm2
         self._mgl = self._ml * params.gravity_mps2
@@ -175,7 +173,7 @@ class PumpSwingUp:
 
     def energy(self, theta: float, omega: float) -> float:
         """Pendulum energy relative to upright at rest, joules."""
-        return self._half_jp * omega * omega + self._mgl * (math.cos(theta) - 1.0)
+        return pendulum_energy_j(self._jp, self._mgl, theta, omega)
 
     @property
     def set_point_m(self) -> float:

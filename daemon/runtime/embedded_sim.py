@@ -11,8 +11,8 @@ from __future__ import annotations
 import asyncio
 from dataclasses import dataclass, field
 
-from daemon.commands.sim import rig_spec
 from daemon.config import PoiseConfig
+from daemon.config.plant import rig_spec
 from sim_device.faults import FaultPlan
 from sim_device.rig import SimulatedRig
 from sim_device.transports import PtyTransport

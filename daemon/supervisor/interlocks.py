@@ -100,7 +100,7 @@ class InterlockLimits:
         lim = config.interlocks
         period_s = 1.0 / config.sampling.rate_hz
         return cls(
-            soft_limit_m=soft_limit_m(config),
+            soft_limit_m=config.soft_limit_m,
             stop_decel_mps2=config.stop.decel_mps2,
             stop_lag_s=stop_lag_s(lim.reaction_latency_s),
             max_cart_speed_mps=lim.max_cart_speed_mps,
@@ -123,11 +123,6 @@ class InterlockLimits:
         )
 
 
-def soft_limit_m(config: PoiseConfig) -> float:
-    """Largest |x| allowed in normal running (see :attr:`PoiseConfig.soft_limit_m`)."""
-    return config.soft_limit_m
-
-
 def stopping_distance_m(speed_mps: float, decel_mps2: float, reaction_s: float) -> float:
     """Distance to stop from ``speed_mps``: travel during the reaction time, then v^2/(2a)."""
     speed = abs(speed_mps)
@@ -142,7 +137,6 @@ _DEVICE_FAULTS = (
 )
 _ESTOP_BITS_SWITCHES = SW_ESTOP_BUTTON
 _ESTOP_BITS_FAULTS = F_ESTOP
-_TRIP_FAULTS = F_DRIVER | F_SUPPLY | F_WATCHDOG | F_RESET
 _LIMIT_SWITCHES = SW_LIMIT_NEG | SW_LIMIT_POS
 # Plain ints for the hot path: IntFlag arithmetic costs microseconds per operation.
 _TRACK = int(Checks.TRACK)
@@ -232,18 +226,11 @@ class SampleInterlocks:
 
         # Drive off at once.
         if switches or faults:
-            trip = _flag_trip(lim, checks, x_m, v_mps, switches, faults)
-            if trip is not None:
-                return trip
-        if (
-            supply_v < lim.supply_min_v or supply_v > lim.supply_max_v
-        ):  # NaN (not reported) compares False
-            return Trip(
-                "drive.supply",
-                Action.DRIVE_OFF,
-                f"supply {supply_v:.2f} V outside {lim.supply_min_v:g}..{lim.supply_max_v:g} V",
-                {"supply_v": supply_v, "min_v": lim.supply_min_v, "max_v": lim.supply_max_v},
-            )
+            trips = flag_trips(lim, checks, x_m, v_mps, switches, faults)
+            if trips:
+                return trips[0]
+        if supply_v < lim.supply_min_v or supply_v > lim.supply_max_v:  # NaN (not reported): False
+            return supply_trip(lim, supply_v)
         if t_s - self._stalled_since_s > lim.stall_time_s:
             return Trip(
                 "drive.plausibility",
@@ -309,49 +296,55 @@ class SampleInterlocks:
         return None
 
 
-def _flag_trip(
+def flag_trips(
     lim: InterlockLimits, checks: int, x_m: float, v_mps: float, switches: int, faults: int
-) -> Trip | None:
-    """The trip the rig's switch and fault flags call for, most severe first, or ``None``."""
+) -> list[Trip]:
+    """Every trip the rig's switch and fault flags call for, the most severe first.
+
+    The per-sample check acts on the first; the pre-arm checks report them all.
+    """
+    trips = []
     if switches & _ESTOP_BITS_SWITCHES or faults & _ESTOP_BITS_FAULTS:
-        return Trip(
+        trips.append(Trip(
             "estop.button",
             lim.estop_action,
-            "e-stop button pressed on the rig",
+            "e-stop button pressed on the rig (or its latch not yet cleared)",
             {"switches": float(switches), "faults": float(faults)},
             estop=True,
-        )
-    if faults & _TRIP_FAULTS:
-        return _fault_flag_trip(faults)
-    if switches & SW_END_STOP:
-        return Trip(
-            "track.end_stop",
-            Action.DRIVE_OFF,
-            "cart against a hard end stop",
-            {"x_m": x_m, "v_mps": v_mps},
-        )
-    if checks & _SWITCHES and switches & _LIMIT_SWITCHES:
-        side = "negative" if switches & SW_LIMIT_NEG else "positive"
-        return Trip(
-            "track.limit_switch",
-            Action.DRIVE_OFF,
-            f"{side} limit switch hit",
-            {"x_m": x_m, "v_mps": v_mps},
-        )
-    return None
-
-
-def _fault_flag_trip(faults: int) -> Trip:
+        ))
     if faults & F_RESET:
-        return Trip(
+        trips.append(Trip(
             "device.reset", Action.DRIVE_OFF, "the rig reset itself", {"faults": float(faults)}
-        )
+        ))
     for bit, name in _DEVICE_FAULTS:
         if faults & bit:
-            return Trip(
+            trips.append(Trip(
                 name, Action.DRIVE_OFF, f"rig reports fault {name}", {"faults": float(faults)}
-            )
-    raise ValueError(f"no trip fault bit set in faults=0x{faults:04x}")
+            ))
+    if switches & SW_END_STOP:
+        trips.append(Trip(
+            "track.end_stop", Action.DRIVE_OFF, "cart against a hard end stop",
+            {"x_m": x_m, "v_mps": v_mps},
+        ))
+    if checks & _SWITCHES and switches & _LIMIT_SWITCHES:
+        side = "negative" if switches & SW_LIMIT_NEG else "positive"
+        trips.append(Trip(
+            "track.limit_switch", Action.DRIVE_OFF, f"{side} limit switch hit",
+            {"x_m": x_m, "v_mps": v_mps},
+        ))
+    return trips
+
+
+def supply_trip(lim: InterlockLimits, supply_v: float) -> Trip | None:
+    """The trip for a supply voltage outside its range; None inside it or when not reported (NaN)."""
+    if not (supply_v < lim.supply_min_v or supply_v > lim.supply_max_v):  # NaN compares False
+        return None
+    return Trip(
+        "drive.supply",
+        Action.DRIVE_OFF,
+        f"supply {supply_v:.2f} V outside {lim.supply_min_v:g}..{lim.supply_max_v:g} V",
+        {"supply_v": supply_v, "min_v": lim.supply_min_v, "max_v": lim.supply_max_v},
+    )
 
 
 def link_timeout_trip(

@@ -37,7 +37,7 @@ from typing import TYPE_CHECKING
 from daemon.control.excitation import EXCITE_KINDS
 from daemon.errors import CommandRefused
 from daemon.supervisor.decision import Output
-from daemon.supervisor.interlocks import Action, Trip, soft_limit_m
+from daemon.supervisor.interlocks import Action, Trip
 from daemon.supervisor.states import (
     LATCHED_STATES,
     MOTION_STATES,
@@ -109,7 +109,7 @@ class StateMachine:
         self._on_entry = on_entry
         self._stop = config.stop
         self._retries = config.catch.retries
-        self._soft_limit_m = soft_limit_m(config)
+        self._soft_limit_m = config.soft_limit_m
         self._drive_limit = config.drive.limit
         # sizes and checks excitation amplitudes on the plant model (numpy: imported for a machine
         # that runs, not for every importer of the supervisor package)

@@ -11,19 +11,9 @@ import math
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
-from daemon.supervisor.interlocks import soft_limit_m
+from daemon.control.encoders import wrap_angle
+from daemon.supervisor.interlocks import Checks, InterlockLimits, flag_trips, supply_trip
 from daemon.supervisor.states import Command
-from protocol.messages import (
-    F_DRIVER,
-    F_ESTOP,
-    F_RESET,
-    F_SUPPLY,
-    F_WATCHDOG,
-    SW_END_STOP,
-    SW_ESTOP_BUTTON,
-    SW_LIMIT_NEG,
-    SW_LIMIT_POS,
-)
 
 if TYPE_CHECKING:
     from daemon.config import PoiseConfig
@@ -64,11 +54,10 @@ class CheckFailure:
 
 @dataclass(frozen=True, slots=True)
 class PrecheckLimits:
+    interlocks: InterlockLimits  # the flag and supply checks are the interlocks' own
     rate_hz: float
     rate_tolerance: float
     soft_limit_m: float
-    supply_min_v: float
-    supply_max_v: float
     hanging_tolerance_rad: float
     still_rate_radps: float
     catch_angle_rad: float
@@ -78,22 +67,15 @@ class PrecheckLimits:
     def from_config(cls, config: PoiseConfig) -> PrecheckLimits:
         lim = config.interlocks
         return cls(
+            interlocks=InterlockLimits.from_config(config),
             rate_hz=float(config.sampling.rate_hz),
             rate_tolerance=lim.prearm_rate_tolerance,
-            soft_limit_m=soft_limit_m(config),
-            supply_min_v=-math.inf if lim.supply_min_v is None else lim.supply_min_v,
-            supply_max_v=math.inf if lim.supply_max_v is None else lim.supply_max_v,
+            soft_limit_m=config.soft_limit_m,
             hanging_tolerance_rad=math.radians(lim.prearm_hanging_tolerance_deg),
             still_rate_radps=math.radians(lim.prearm_still_rate_dps),
             catch_angle_rad=math.radians(config.catch.angle_deg),
             catch_rate_radps=math.radians(config.catch.rate_dps),
         )
-
-
-def wrap_angle_rad(angle_rad: float) -> float:
-    """Wrap to (-pi, pi]."""
-    wrapped = math.remainder(angle_rad, math.tau)
-    return math.pi if wrapped == -math.pi else wrapped
 
 
 def prearm_failures(command: Command, health: Health, limits: PrecheckLimits) -> list[CheckFailure]:
@@ -114,18 +96,14 @@ def prearm_failures(command: Command, health: Health, limits: PrecheckLimits) ->
         fail("device.watchdog", "the rig's watchdog is not active")
     for problem in h.config_problems:
         fail("config.valid", problem)
-    if h.switches & SW_ESTOP_BUTTON or h.faults & F_ESTOP:
-        fail("estop.released", "e-stop button pressed or its latch not cleared on the rig")
-    device_faults = h.faults & (F_DRIVER | F_SUPPLY | F_WATCHDOG | F_RESET)
-    if device_faults:
-        fail("device.faults", f"rig reports faults 0x{device_faults:04x}")
-    if h.supply_v < limits.supply_min_v or h.supply_v > limits.supply_max_v:
-        fail(
-            "supply.range",
-            f"supply {h.supply_v:.2f} V outside {limits.supply_min_v:g}..{limits.supply_max_v:g} V",
-        )
-    if h.switches & SW_END_STOP:
-        fail("track.end_stop", "cart against a hard end stop")
+    # The rig's flags and supply, judged by the very interlocks that watch them while it runs
+    # (limit switches only where the cart must be homed: homing runs onto them).
+    switch_checks = int(Checks.SWITCHES) if command in _NEEDS_HOMED else 0
+    for trip in flag_trips(limits.interlocks, switch_checks, h.x_m, 0.0, h.switches, h.faults):
+        fail(trip.name, trip.reason)
+    supply = supply_trip(limits.interlocks, h.supply_v)
+    if supply is not None:
+        fail(supply.name, supply.reason)
     if command in _NEEDS_HOMED:
         if not h.homed:
             fail("cart.homed", "cart not homed")
@@ -133,10 +111,8 @@ def prearm_failures(command: Command, health: Health, limits: PrecheckLimits) ->
             fail(
                 "track.soft_limit", f"cart at {h.x_m:+.3f} m, outside ±{limits.soft_limit_m:.3f} m"
             )
-        if h.switches & (SW_LIMIT_NEG | SW_LIMIT_POS):
-            fail("track.limit_switch", "a limit switch is pressed")
     if command in _NEEDS_HANGING:
-        off_rad = abs(wrap_angle_rad(h.theta_rad - math.pi))
+        off_rad = abs(wrap_angle(h.theta_rad - math.pi))
         if off_rad > limits.hanging_tolerance_rad or abs(h.omega_radps) > limits.still_rate_radps:
             fail(
                 "pendulum.hanging_still",
@@ -144,7 +120,7 @@ def prearm_failures(command: Command, health: Health, limits: PrecheckLimits) ->
                 f"turning {math.degrees(h.omega_radps):.1f} deg/s",
             )
     if command is Command.BALANCE:
-        angle_rad = wrap_angle_rad(h.theta_rad)
+        angle_rad = wrap_angle(h.theta_rad)
         if abs(angle_rad) > limits.catch_angle_rad or abs(h.omega_radps) > limits.catch_rate_radps:
             fail(
                 "pendulum.in_catch_window",
