@@ -2,10 +2,9 @@
 
 from __future__ import annotations
 
-from rich.text import Text
-
+from daemon.ui.braille import Run
 from daemon.ui.palette import BAD, GOOD, INK, MUTED, margin_style
-from daemon.ui.widgets.base import StatusWidget, number
+from daemon.ui.widgets.base import DrawnWidget, number
 
 MARGIN_BAR_CELLS = 10
 NAME_CELLS = 24
@@ -24,10 +23,10 @@ def margin_cells(margin: object, limit: object) -> int | None:
     return round(max(0.0, min(1.0, margin / limit)) * MARGIN_BAR_CELLS)
 
 
-def margin_bar(cells: int | None, style: str) -> Text:
+def margin_bar(cells: int | None, style: str) -> list[Run]:
     if cells is None:
-        return Text(" " * MARGIN_BAR_CELLS)
-    return Text.assemble(("▰" * cells, style), ("▱" * (MARGIN_BAR_CELLS - cells), MUTED))
+        return [(" " * MARGIN_BAR_CELLS, None)]
+    return [("▰" * cells, style), ("▱" * (MARGIN_BAR_CELLS - cells), MUTED)]
 
 
 def shown_row(row: dict) -> tuple:
@@ -45,21 +44,25 @@ def shown_row(row: dict) -> tuple:
     )
 
 
-class Interlocks(StatusWidget):
+class Interlocks(DrawnWidget):
     MIN_REDRAW_INTERVAL_S = 0.2
 
     def shown_part(self, status: dict) -> object:
         return tuple(shown_row(row) for row in status.get("interlocks") or [])
 
-    def render(self) -> Text:
-        text = Text(HEADER, style=f"bold {MUTED}", no_wrap=True, overflow="crop")
+    def draw(self) -> list[list[Run]]:
+        rows: list[list[Run]] = [[(HEADER, f"bold {MUTED}")]]
         for name, state, value, limit, margin, style, cells, unit in self.shown or ():
             mark, mark_style = STATE_MARKS.get(state, (str(state), INK))
-            text.append(f"\n{name:<{NAME_CELLS}}", INK)
-            text.append(f"{mark:<10}", mark_style)
-            text.append(f"{value:>8}", INK)
-            text.append(f"{limit:>8}", MUTED)
-            text.append(f"{margin:>9}  ", style)
-            text.append_text(margin_bar(cells, style))
-            text.append(f" {unit}", MUTED)
-        return text
+            rows.append(
+                [
+                    (f"{name:<{NAME_CELLS}}", INK),
+                    (f"{mark:<10}", mark_style),
+                    (f"{value:>8}", INK),
+                    (f"{limit:>8}", MUTED),
+                    (f"{margin:>9}  ", style),
+                    *margin_bar(cells, style),
+                    (f" {unit}", MUTED),
+                ]
+            )
+        return rows

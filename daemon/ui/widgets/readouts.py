@@ -4,17 +4,16 @@ from __future__ import annotations
 
 import math
 
-from rich.text import Text
-
+from daemon.ui.braille import Run
 from daemon.ui.palette import CART, GOOD, INK, MUTED, POLE, SETPOINT, WARN
-from daemon.ui.widgets.base import NO_VALUE, StatusWidget, number, wrap_deg
+from daemon.ui.widgets.base import NO_VALUE, DrawnWidget, number, wrap_deg
 
 DRIVE_BAR_CELLS = 12
 LABEL_CELLS = 10
 VALUE_CELLS = 8
 
 
-class Readouts(StatusWidget):
+class Readouts(DrawnWidget):
     def __init__(self, drive_unit: str, **kwargs):
         super().__init__(**kwargs)
         self.drive_unit = drive_unit
@@ -33,28 +32,25 @@ class Readouts(StatusWidget):
             number(status.get("drive_limit"), "g"),
         )
 
-    def render(self) -> Text:
-        text = Text(no_wrap=True, overflow="crop")
+    def draw(self) -> list[list[Run]]:
         if self.shown is None:
-            return text
+            return []
         x, v, theta_deg, omega, setpoint, drive, bar, limit = self.shown
-        self._row(text, "cart", CART, [(x, "m"), (v, "m/s")])
-        self._row(text, "pendulum", POLE, [(theta_deg, "° "), (omega, "rad/s")])
-        self._row(text, "set-point", SETPOINT, [(setpoint, "m")])
-        self._row(text, "drive", INK, [(drive, self.drive_unit)])
-        text.append(" ")
-        text.append_text(drive_bar(bar))
-        text.append(f" ±{limit}", MUTED)
-        return text
+        drive_row = self._row("drive", INK, [(drive, self.drive_unit)])
+        drive_row += [(" ", None), *drive_bar(bar), (f" ±{limit}", MUTED)]
+        return [
+            self._row("cart", CART, [(x, "m"), (v, "m/s")]),
+            self._row("pendulum", POLE, [(theta_deg, "° "), (omega, "rad/s")]),
+            self._row("set-point", SETPOINT, [(setpoint, "m")]),
+            drive_row,
+        ]
 
     @staticmethod
-    def _row(text: Text, label: str, colour: str, values: list[tuple[str, str]]) -> None:
-        if text:
-            text.append("\n")
-        text.append(f"{label:<{LABEL_CELLS}}", colour)
+    def _row(label: str, colour: str, values: list[tuple[str, str]]) -> list[Run]:
+        row: list[Run] = [(f"{label:<{LABEL_CELLS}}", colour)]
         for value, unit in values:
-            text.append(f"{value:>{VALUE_CELLS}}", f"bold {INK}")
-            text.append(f" {unit:<5}", MUTED)
+            row += [(f"{value:>{VALUE_CELLS}}", f"bold {INK}"), (f" {unit:<5}", MUTED)]
+        return row
 
 
 def drive_bar_cells(drive: object, limit: object) -> tuple[int, int, bool] | None:
@@ -67,17 +63,17 @@ def drive_bar_cells(drive: object, limit: object) -> tuple[int, int, bool] | Non
     return (filled if fraction < 0 else 0, filled if fraction > 0 else 0, abs(fraction) > 0.8)
 
 
-def drive_bar(cells: tuple[int, int, bool] | None) -> Text:
+def drive_bar(cells: tuple[int, int, bool] | None) -> list[Run]:
     """A centred bar: filled to the left or right in proportion to drive / limit."""
     if cells is None:
-        return Text("·" * DRIVE_BAR_CELLS, MUTED)
+        return [("·" * DRIVE_BAR_CELLS, MUTED)]
     half = DRIVE_BAR_CELLS // 2
     left, right, near_limit = cells
     style = WARN if near_limit else GOOD
-    return Text.assemble(
+    return [
         ("·" * (half - left), MUTED),
         ("█" * left, style),
         ("│", INK),
         ("█" * right, style),
         ("·" * (half - right), MUTED),
-    )
+    ]
