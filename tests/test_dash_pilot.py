@@ -247,6 +247,17 @@ def screen_text(app: PoiseDash) -> str:
     return console.export_text()
 
 
+def every_state_panel(app: PoiseDash) -> list[list[str]]:
+    """From now on, the state panel's lines each time what it shows changes (filled in as it goes).
+
+    Polling would miss short phases: a lockstep rig runs many times faster than real time.
+    """
+    drawn: list[list[str]] = []
+    panel = app.query_one(StatePanel)
+    panel.watch(panel, "shown", lambda: drawn.append(state_lines(app)), init=False)
+    return drawn
+
+
 def first_key(app: PoiseDash) -> tuple[str, str, str]:
     """(key, title, look) of the key bar's first key after the e-stop."""
     chip = app.query_one(KeyBar).chips()[0]
@@ -256,7 +267,9 @@ def first_key(app: PoiseDash) -> tuple[str, str, str]:
 async def test_homing_shows_its_phase_and_distance_then_the_travel_it_measured_and_arm_comes_next(
     tmp_path,
 ):
-    async with running_service(tmp_path, serve_api=True) as service:
+    # A slow seek, so that homing spans many status lines however fast the lockstep rig runs.
+    slow = "[homing]\nspeed_mps = 0.03\n"
+    async with running_service(tmp_path, serve_api=True, extra=slow) as service:
         track = service.config.track
         # Switch to switch: the track length less both switch insets (the config's own numbers).
         expected_m = track.length_m - 2.0 * track.switch_inset_m
@@ -266,15 +279,18 @@ async def test_homing_shows_its_phase_and_distance_then_the_travel_it_measured_a
             assert "next    h  home" in state_lines(app)
             assert "cart    not homed" in state_lines(app)
             assert first_key(app) == ("h", "home", "next")  # the key bar agrees with the panel
+            drawn = every_state_panel(app)
             await pilot.press("h", "enter", "y")
-            seeking = re.compile(rf"cart    seeking \+ end: (\d\.\d\d) of {expected_m:.2f} m")
-            await until(
-                pilot,
-                lambda: any(seeking.fullmatch(line) for line in state_lines(app)),
-                "the dashboard to show the seek toward the + end",
-            )
-            assert "next" not in " ".join(state_lines(app))  # nothing to do but wait (or stop)
             await until(pilot, lambda: bool(app.status.get("homed")), "homing to end")
+            seeking = re.compile(rf"cart    seeking \+ end: (\d\.\d\d) of {expected_m:.2f} m")
+            while_seeking = [lines for lines in drawn if any(map(seeking.fullmatch, lines))]
+            assert while_seeking, f"the seek toward the + end was never shown: {drawn}"
+            matches = [seeking.fullmatch(line) for lines in while_seeking for line in lines]
+            distances = [float(match[1]) for match in matches if match]
+            assert distances == sorted(distances) and 0.0 <= distances[0] <= expected_m
+            assert any(line.startswith("cart    seeking − end: ") for lines in drawn for line in lines)
+            # Nothing to do but wait (or stop) while homing: no next step is offered.
+            assert not any(line.startswith("next") for line in while_seeking[0])
             measured_m = service.cycle.homing.measured_travel_m
             assert abs(measured_m - expected_m) <= service.config.homing.length_tolerance_m
             await until(pilot, lambda: app.state == "IDLE", "the dashboard to show IDLE again")
@@ -312,8 +328,9 @@ async def test_the_rig_link_panel_shows_loop_lag_and_the_worst_read_gap_against_
 
 
 async def test_a_latched_fault_shows_its_hint_and_says_plainly_when_it_has_latched_again(tmp_path):
-    # The simulated motor driver reports a fault twice; the first is reset from the dashboard.
-    faults = FaultPlan(events=((0.5, DriverFault()), (20.0, DriverFault())))
+    # The simulated motor driver reports a fault twice; the first is reset from the dashboard,
+    # well before the second comes even on a lockstep rig running a hundred times real time.
+    faults = FaultPlan(events=((0.5, DriverFault()), (45.0, DriverFault())))
     hint = FAULT_HINTS["device.driver"]
     async with running_service(tmp_path, serve_api=True, faults=faults) as service:
         app = dashboard(service)
