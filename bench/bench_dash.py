@@ -17,25 +17,17 @@ import argparse
 import asyncio
 import fcntl
 import os
-import signal
 import struct
 import subprocess
-import sys
-import tempfile
 import termios
 import threading
 import time
-from collections.abc import Callable
 from pathlib import Path
 
-from daemon.api.client import ApiClient, ApiError
-from daemon.errors import CommandRefused
+from sim_daemon import CONFIG, POISE, REPO, NotBalancing, balance, simulated_daemon
 
-REPO = Path(__file__).resolve().parent.parent
-CONFIG = REPO / "configs" / "kestrel-1.toml"
 CLOCK_TICKS_PER_S = os.sysconf("SC_CLK_TCK")
 SETTLE_S = 2.0  # let the dashboard finish starting before a window is timed
-WAIT_LIMIT_S = 60.0
 
 
 def cpu_s(pid: int) -> float:
@@ -64,70 +56,9 @@ class Terminal:
             self.bytes_read += len(chunk)
 
 
-class NotBalancing(Exception):
-    """The daemon could not be brought to balance (on a machine too loaded for real time)."""
-
-
-async def first_status(client: ApiClient, wanted: Callable[[dict], bool]) -> dict:
-    """The first status line for which ``wanted`` is true."""
-    async with asyncio.timeout(WAIT_LIMIT_S):
-        async for status in client.subscribe(20.0):
-            if wanted(status):
-                return status
-    raise ConnectionError("the daemon closed the connection")
-
-
-def in_state(*states: str) -> Callable[[dict], bool]:
-    return lambda status: status.get("state") in states
-
-
-def homed_or_fault(status: dict) -> bool:
-    return status.get("state") == "FAULT" or (status.get("state") == "IDLE" and status.get("homed"))
-
-
-async def balance(client: ApiClient, attempts: int = 3) -> None:
-    """Home, arm and swing up; returns once the daemon balances the pendulum.
-
-    A loaded machine can stall the daemon past its limits (loop.stall, device.watchdog):
-    then the fault is reset and the whole sequence tried again, up to ``attempts`` times.
-    """
-    for _ in range(attempts):
-        status = await first_status(client, in_state("IDLE", "FAULT"))
-        if status["state"] == "FAULT":
-            print(f"  (reset after {', '.join(f['reason'] for f in status['faults'])})", flush=True)
-            await client.request("reset")
-            await first_status(client, in_state("IDLE", "FAULT"))
-        try:
-            await client.request("home")
-            status = await first_status(client, homed_or_fault)
-            if status["state"] != "IDLE":
-                continue
-            await client.request("arm")
-        except CommandRefused as refused:
-            print(f"  ({refused})", flush=True)
-            await asyncio.sleep(0.5)
-            continue
-        if await swing_up(client) == "BALANCE":
-            return
-    raise NotBalancing(f"no balance in {attempts} attempts")
-
-
-async def swing_up(client: ApiClient) -> str:
-    """Send swing_up once the pendulum hangs still; returns the state the swing-up ends in."""
-    async with asyncio.timeout(WAIT_LIMIT_S):
-        while True:
-            try:
-                await client.request("swing_up")
-                break
-            except CommandRefused as refused:
-                if "hanging_still" not in refused.reason:
-                    return "refused"
-            await asyncio.sleep(0.2)
-    status = await first_status(client, in_state("BALANCE", "FAULT", "IDLE"))
-    return status["state"]
-
-
-async def measure(name: str, seconds: float, dash_pid: int, daemon_pid: int, tty: Terminal) -> None:
+async def measure(
+    name: str, seconds: float, dash_pid: int, daemon_pid: int, tty: Terminal
+) -> None:
     dash0, daemon0, bytes0 = cpu_s(dash_pid), cpu_s(daemon_pid), tty.bytes_read
     t0 = time.monotonic()
     await asyncio.sleep(seconds)
@@ -143,48 +74,28 @@ async def measure(name: str, seconds: float, dash_pid: int, daemon_pid: int, tty
 
 
 async def main(seconds: float, columns: int, rows: int) -> None:
-    folder = Path(tempfile.mkdtemp(prefix="poise-bench-dash-"))
-    socket_path = folder / "bench.sock"
-    cli = (sys.executable, "-m", "daemon.cli")
-    env = {**os.environ, "PYTHONPATH": str(REPO)}
-    daemon = subprocess.Popen(
-        [*cli, "run", "--sim", "--config", str(CONFIG), "--socket", str(socket_path)],
-        cwd=folder, env=env, stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL,
-        stderr=subprocess.DEVNULL,
-    )
-    dash = None
-    try:
-        async with asyncio.timeout(WAIT_LIMIT_S):
-            while True:
-                try:
-                    client = await ApiClient.connect(socket_path, source="api")
-                    break
-                except ApiError:
-                    await asyncio.sleep(0.1)
+    async with simulated_daemon() as (daemon, client):
         tty = Terminal(columns, rows)
-        dash_env = {k: v for k, v in env.items() if k not in ("COLUMNS", "LINES")}
+        env = {k: v for k, v in os.environ.items() if k not in ("COLUMNS", "LINES")}
         dash = subprocess.Popen(
-            [*cli, "dash", "--config", str(CONFIG), "--socket", str(socket_path)],
-            cwd=folder, env={**dash_env, "TERM": "xterm-256color"},
+            [*POISE, "dash", "--config", str(CONFIG), "--socket", str(client.socket_path)],
+            env={**env, "PYTHONPATH": str(REPO), "TERM": "xterm-256color"},
             stdin=tty.slave, stdout=tty.slave, stderr=tty.slave, start_new_session=True,
         )
-        print(f"poise dash on a {columns}x{rows} pty, {seconds:g} s per window", flush=True)
-        await asyncio.sleep(SETTLE_S)
-        await measure("at rest", seconds, dash.pid, daemon.pid, tty)
         try:
-            await balance(client)
-        except (NotBalancing, TimeoutError) as exc:
-            print(f"balancing    not measured: {exc or 'timed out'}", flush=True)
-        else:
+            print(f"poise dash on a {columns}x{rows} pty, {seconds:g} s per window", flush=True)
             await asyncio.sleep(SETTLE_S)
-            await measure("balancing", seconds, dash.pid, daemon.pid, tty)
-        await client.close()
-    finally:
-        if dash is not None:
+            await measure("at rest", seconds, dash.pid, daemon.pid, tty)
+            try:
+                await balance(client)
+            except (NotBalancing, TimeoutError) as exc:
+                print(f"balancing    not measured: {exc or 'timed out'}", flush=True)
+            else:
+                await asyncio.sleep(SETTLE_S)
+                await measure("balancing", seconds, dash.pid, daemon.pid, tty)
+        finally:
             dash.kill()
             dash.wait()
-        daemon.send_signal(signal.SIGTERM)
-        daemon.wait(timeout=WAIT_LIMIT_S)
 
 
 if __name__ == "__main__":
