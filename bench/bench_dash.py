@@ -79,6 +79,7 @@ async def main(seconds: float, columns: int, rows: int) -> None:
         env = {k: v for k, v in os.environ.items() if k not in ("COLUMNS", "LINES")}
         dash = subprocess.Popen(
             [*POISE, "dash", "--config", str(CONFIG), "--socket", str(client.socket_path)],
+            cwd=REPO,  # `python -m` looks in the working folder first: this checkout's dashboard
             env={**env, "PYTHONPATH": str(REPO), "TERM": "xterm-256color"},
             stdin=tty.slave, stdout=tty.slave, stderr=tty.slave, start_new_session=True,
         )
