@@ -7,8 +7,12 @@ import unicodedata
 from daemon.ui.braille import BrailleCanvas
 
 
+def plain(canvas: BrailleCanvas) -> list[str]:
+    return ["".join(text for text, _style in row) for row in canvas.runs()]
+
+
 def cell(canvas: BrailleCanvas, column: int = 0, row: int = 0) -> str:
-    return canvas.to_text().plain.split("\n")[row][column]
+    return plain(canvas)[row][column]
 
 
 def test_each_dot_of_a_cell_is_the_braille_dot_the_unicode_standard_numbers_it():
@@ -52,13 +56,12 @@ def test_dots_outside_the_canvas_are_dropped():
     layer = canvas.layer("white")
     canvas.line(layer, -5, -5, -1, -1)
     canvas.dot(layer, 2, 0)
-    assert canvas.to_text().plain == " "
+    assert plain(canvas) == [" "]
 
 
 def test_layers_sharing_a_cell_merge_their_dots_and_the_later_layer_sets_the_style():
     canvas = BrailleCanvas(1, 1)
     canvas.dot(canvas.layer("red"), 0, 0)
     canvas.dot(canvas.layer("green"), 1, 3)
-    text = canvas.to_text()
-    assert unicodedata.name(text.plain) == "BRAILLE PATTERN DOTS-18"
-    assert [span.style for span in text.spans] == ["green"]
+    assert canvas.runs() == [[(chr(0x2800 + 0x01 + 0x80), "green")]]
+    assert unicodedata.name(plain(canvas)[0]) == "BRAILLE PATTERN DOTS-18"

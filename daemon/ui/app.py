@@ -6,7 +6,12 @@ redraws itself when they change. Keys become control API commands; commands that
 start motion ask for confirmation first, and the first of them in a session
 shows the safety caution. The e-stop key is a priority binding, so it acts on
 every screen, modals included, and it closes any open question so that no stale
-confirmation can start motion afterwards.
+confirmation can start motion afterwards. The quit key is one too: on a question
+it cancels the question and quits as it always does (stopping a moving rig
+first), and on the "stop and quit?" question it answers yes.
+
+The layout follows the terminal's size (daemon/ui/layout.py): all panels, a
+compact set, or a request for a larger terminal.
 """
 
 from __future__ import annotations
@@ -21,25 +26,31 @@ from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
 from textual.reactive import reactive
 from textual.screen import ModalScreen
+from textual.widgets import Static
 
 from daemon.api.client import ApiError
 from daemon.errors import CommandRefused
 from daemon.ui.confirm import ConfirmScreen
 from daemon.ui.connection import DEFAULT_BACKOFF, Backoff, DaemonLink, LinkState
 from daemon.ui.keys import (
+    CENTRE,
     CENTRE_KEY,
     ESTOP_KEY,
     KEYS_BY_COMMAND,
     NUDGE_LEFT_KEY,
     NUDGE_RIGHT_KEY,
     OPERATOR_KEYS,
+    QUIT,
     QUIT_KEY,
+    RECORD,
     RECORD_KEY,
     SETPOINT_STEP_M,
 )
+from daemon.ui.layout import HORIZONTAL_BREAKPOINTS, VERTICAL_BREAKPOINTS, too_small
 from daemon.ui.palette import MOTION_STATE_NAMES
-from daemon.ui.safety import SafetyScreen
+from daemon.ui.safety import CAUTION_STRIP, SafetyScreen
 from daemon.ui.widgets.events import EventLog
+from daemon.ui.widgets.interlock_summary import InterlockSummary
 from daemon.ui.widgets.interlocks import Interlocks
 from daemon.ui.widgets.keybar import KeyBar
 from daemon.ui.widgets.link import LinkHealth
@@ -49,6 +60,7 @@ from daemon.ui.widgets.readouts import Readouts
 from daemon.ui.widgets.recording import Recording
 from daemon.ui.widgets.rig_view import RigView
 from daemon.ui.widgets.state_panel import StatePanel
+from daemon.ui.widgets.too_small import TooSmall
 from daemon.ui.widgets.traces import Traces
 
 STATUS_RATE_HZ = 10.0
@@ -60,18 +72,22 @@ class PoiseDash(App[None]):
     CSS_PATH = "dash.tcss"
     TITLE = "Poise"
     ENABLE_COMMAND_PALETTE = False
+    HORIZONTAL_BREAKPOINTS = HORIZONTAL_BREAKPOINTS
+    VERTICAL_BREAKPOINTS = VERTICAL_BREAKPOINTS
     BINDINGS: ClassVar[list[Binding]] = [
         Binding(ESTOP_KEY, "estop", "E-STOP", priority=True),
         *(Binding(key.key, f"command('{key.command}')", key.title) for key in OPERATOR_KEYS),
         Binding(NUDGE_LEFT_KEY, "nudge(-1)", "set-point left"),
         Binding(NUDGE_RIGHT_KEY, "nudge(1)", "set-point right"),
-        Binding(CENTRE_KEY, "centre", "set-point to centre"),
-        Binding(RECORD_KEY, "record", "recording on/off"),
-        Binding(QUIT_KEY, "leave", "quit"),
+        Binding(CENTRE_KEY, "centre", CENTRE.title),
+        Binding(RECORD_KEY, "record", RECORD.title),
+        Binding(QUIT_KEY, "leave", QUIT.title, priority=True),
     ]
 
-    status: reactive[dict] = reactive(dict, always_update=True)
-    link: reactive[LinkState] = reactive(LinkState(False, "connecting"))
+    # Not repainted here: a repaint of the app is a repaint of the whole screen. Each panel
+    # redraws itself when the part of these it shows has changed (StatusWidget.shown_part).
+    status: reactive[dict] = reactive(dict, always_update=True, repaint=False)
+    link: reactive[LinkState] = reactive(LinkState(False, "connecting"), repaint=False)
 
     def __init__(
         self,
@@ -99,21 +115,27 @@ class PoiseDash(App[None]):
         def bound(widget):
             return widget.data_bind(PoiseDash.status, PoiseDash.link)
 
-        yield bound(Masthead(id="masthead"))
-        with Horizontal(id="upper"):
-            with Vertical(id="left"):
-                yield bound(StatePanel(id="state", classes="panel"))
-                yield Notice(id="notice")
-                yield bound(Readouts(self.drive_unit, id="readouts", classes="panel"))
-                yield bound(LinkHealth(id="link", classes="panel"))
-                yield bound(Recording(id="recording", classes="panel"))
-            with Vertical(id="right"):
-                yield bound(RigView(id="rig", classes="panel"))
-                yield bound(Traces(self.drive_unit, id="traces", classes="panel"))
-        with Horizontal(id="lower"):
-            yield bound(Interlocks(id="interlocks", classes="panel"))
-            yield bound(EventLog(id="events", classes="panel"))
-        yield bound(KeyBar(id="keybar"))
+        # Panels marked full-only are hidden in the compact layout, compact-only the other way
+        # round; #dashboard gives way to #too-small below the compact layout's minimum.
+        with Vertical(id="dashboard"):
+            yield bound(Masthead(id="masthead"))
+            with Horizontal(id="upper"):
+                with Vertical(id="left"):
+                    yield bound(StatePanel(id="state", classes="panel"))
+                    yield Notice(id="notice")
+                    yield bound(Readouts(self.drive_unit, id="readouts", classes="panel"))
+                    yield bound(InterlockSummary(id="summary", classes="panel compact-only"))
+                    yield bound(LinkHealth(id="link", classes="panel full-only"))
+                    yield bound(Recording(id="recording", classes="panel full-only"))
+                with Vertical(id="right"):
+                    yield bound(RigView(id="rig", classes="panel"))
+                    yield bound(Traces(self.drive_unit, id="traces", classes="panel full-only"))
+            with Horizontal(id="lower", classes="full-only"):
+                yield bound(Interlocks(id="interlocks", classes="panel"))
+                yield bound(EventLog(id="events", classes="panel"))
+            yield Static(CAUTION_STRIP, id="caution")
+            yield bound(KeyBar(id="keybar"))
+        yield bound(TooSmall(id="too-small"))
 
     def on_mount(self) -> None:
         titles = {
@@ -124,6 +146,7 @@ class PoiseDash(App[None]):
             "rig": "rig",
             "traces": "last 10 s",
             "interlocks": "interlocks",
+            "summary": "interlocks",
             "events": "events",
         }
         for widget_id, title in titles.items():
@@ -164,6 +187,10 @@ class PoiseDash(App[None]):
         key = KEYS_BY_COMMAND[command]
         if not self._possible(command, key.title):
             return
+        if key.confirm and too_small(self.size):
+            notice = self.query_one(Notice)
+            notice.show(f"{key.title}: not sent, the terminal is too small", "refused")
+            return
         if key.confirm:
             self._confirm_then_send(command, key.title, key.confirm)
         else:
@@ -183,6 +210,13 @@ class PoiseDash(App[None]):
         self.run_worker(self.send("record", {"on": on}), group="commands")
 
     def action_leave(self) -> None:
+        """Quit; a moving rig is stopped first. An open question is cancelled (or, if it is
+        the "stop and quit?" question, answered yes)."""
+        if isinstance(self.screen, ConfirmScreen) and self.screen.about_quitting:
+            self.screen.dismiss(True)
+            return
+        while isinstance(self.screen, ModalScreen):
+            self.screen.dismiss(False)
         if self.state in MOTION_STATE_NAMES:
             self._stop_then_quit()
         else:
@@ -217,7 +251,7 @@ class PoiseDash(App[None]):
         except ApiError as exc:
             notice.show(f"E-STOP NOT DELIVERED ({exc}): use the hardware e-stop", "error")
             return
-        notice.show("e-stop latched: drive stopped; clear it with c when safe", "error")
+        notice.show("e-stop latched: drive stopped; reset with c when safe", "error")
 
     def _possible(self, command: str, title: str) -> bool:
         """Whether ``command`` is allowed now; if not, say why without sending it."""
@@ -249,7 +283,7 @@ class PoiseDash(App[None]):
         """Quitting while the rig moves: a controlled stop first, then leave once it is at rest."""
         question = f"The rig is in {self.state}. Stop it and quit?"
         detail = "A controlled stop is sent; the dashboard closes when the rig is at rest."
-        if not await self.push_screen_wait(ConfirmScreen(question, detail)):
+        if not await self.push_screen_wait(ConfirmScreen(question, detail, about_quitting=True)):
             return
         if self.state in MOTION_STATE_NAMES and not await self.send("stop"):
             return

@@ -8,7 +8,8 @@ the top-left corner; x grows to the right and y grows downward.
 from __future__ import annotations
 
 from rich.style import Style
-from rich.text import Text
+
+Run = tuple[str, "Style | str | None"]  # characters and their style
 
 BRAILLE_BASE = 0x2800
 # Bit of each dot within a braille cell, indexed [row][column]: dots 1-2-3-7 down the
@@ -54,27 +55,30 @@ class BrailleCanvas:
         self.line(layer, x1, y1, x0, y1)
         self.line(layer, x0, y1, x0, y0)
 
-    def to_text(self) -> Text:
-        """The canvas as ``rows`` lines of ``columns`` characters (blank cells are spaces)."""
+    def runs(self) -> list[list[Run]]:
+        """The canvas row by row, each row as runs of (characters, style), ``columns`` in all.
+
+        Blank cells are spaces with no style of their own.
+        """
         bits: dict[tuple[int, int], int] = {}
         styles: dict[tuple[int, int], Style | str] = {}
         for style, cells in self._layers:
             for key, cell_bits in cells.items():
                 bits[key] = bits.get(key, 0) | cell_bits
                 styles[key] = style
-        text = Text(no_wrap=True, overflow="crop")
+        rows: list[list[Run]] = []
         for row in range(self.rows):
+            runs: list[Run] = []
             run: list[str] = []
             run_style: Style | str | None = None
             for column in range(self.columns):
                 key = (column, row)
                 style = styles.get(key)
                 if style != run_style and run:
-                    text.append("".join(run), run_style)
+                    runs.append(("".join(run), run_style))
                     run = []
                 run_style = style
                 run.append(chr(BRAILLE_BASE + bits[key]) if key in bits else " ")
-            text.append("".join(run), run_style)
-            if row < self.rows - 1:
-                text.append("\n")
-        return text
+            runs.append(("".join(run), run_style))
+            rows.append(runs)
+        return rows

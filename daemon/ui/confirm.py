@@ -1,6 +1,8 @@
-"""The confirmation asked before a command that starts motion: `y` goes ahead, `n` or Esc does not.
+"""The confirmation asked before a command that starts motion (or quitting while the rig moves):
+`y` goes ahead, `n` or Esc does not.
 
-The Cancel button has the focus, so Enter on its own never starts anything.
+The Cancel button has the focus, so Enter on its own never starts anything. The
+app's quit key acts on these too (see PoiseDash.action_leave).
 """
 
 from __future__ import annotations
@@ -23,10 +25,11 @@ class ConfirmScreen(ModalScreen[bool]):
         Binding("escape", "answer(False)", "no"),
     ]
 
-    def __init__(self, question: str, detail: str):
+    def __init__(self, question: str, detail: str, *, about_quitting: bool = False):
         super().__init__(classes="dialog-screen")
         self.question = question
         self.detail = detail
+        self.about_quitting = about_quitting  # the "stop and quit?" question: q answers yes
 
     def compose(self) -> ComposeResult:
         with Vertical(classes="dialog"):

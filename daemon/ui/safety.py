@@ -1,5 +1,7 @@
 """The safety caution shown once per dashboard session, before the first command that can power the drive.
 
+The same cautions stay on the dashboard itself, shorter (``CAUTION_STRIP``).
+
 Acknowledged with Enter (on "I understand"); Esc goes back without doing anything.
 """
 
@@ -22,6 +24,14 @@ CAUTION = (
     "the cart can move suddenly and the pendulum swings through the full circle.\n\n"
     "• On a new or changed rig, make the first runs with a low drive limit.\n\n"
     "• Local safety rules and the lab's responsible person have the final word."
+)
+
+# Always on the dashboard, above the key bar: the same cautions in a few words.
+CAUTION_STRIP = (
+    "⚠ A hardware e-stop that cuts motor power is mandatory; "
+    f"{ESTOP_KEY_LABEL} is no substitute. "
+    "Keep hands clear of the track. First runs at low drive limits. "
+    "Local rules and the lab's responsible person come first."
 )
 
 

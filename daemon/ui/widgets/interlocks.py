@@ -2,10 +2,9 @@
 
 from __future__ import annotations
 
-from rich.text import Text
-
+from daemon.ui.braille import Run
 from daemon.ui.palette import BAD, GOOD, INK, MUTED, margin_style
-from daemon.ui.widgets.base import StatusWidget, number
+from daemon.ui.widgets.base import DrawnWidget, number
 
 MARGIN_BAR_CELLS = 10
 NAME_CELLS = 24
@@ -17,29 +16,53 @@ STATE_MARKS = {
 HEADER = f"{'interlock':<{NAME_CELLS}}{'':<10}{'value':>8}{'limit':>8}{'margin':>9}  room"
 
 
-def margin_bar(margin: object, limit: object) -> Text:
-    """Room left as a bar: full when the value is zero, empty at (or past) the limit."""
+def margin_cells(margin: object, limit: object) -> int | None:
+    """Room left in bar cells: all of them when the value is zero, none at (or past) the limit."""
     if not isinstance(margin, int | float) or not isinstance(limit, int | float) or limit <= 0:
-        return Text(" " * MARGIN_BAR_CELLS)
-    filled = round(max(0.0, min(1.0, margin / limit)) * MARGIN_BAR_CELLS)
-    style = margin_style(margin, limit)
-    return Text.assemble(("▰" * filled, style), ("▱" * (MARGIN_BAR_CELLS - filled), MUTED))
+        return None
+    return round(max(0.0, min(1.0, margin / limit)) * MARGIN_BAR_CELLS)
 
 
-class Interlocks(StatusWidget):
+def margin_bar(cells: int | None, style: str) -> list[Run]:
+    if cells is None:
+        return [(" " * MARGIN_BAR_CELLS, None)]
+    return [("▰" * cells, style), ("▱" * (MARGIN_BAR_CELLS - cells), MUTED)]
+
+
+def shown_row(row: dict) -> tuple:
+    """One interlock as printed: name, state, value, limit, margin, its colour, bar cells, unit."""
+    margin, limit = row.get("margin"), row.get("limit")
+    return (
+        str(row.get("name", "?")),
+        row.get("state"),
+        number(row.get("value"), ".3f"),
+        number(limit, ".3f"),
+        number(margin, "+.3f"),
+        margin_style(margin, limit),
+        margin_cells(margin, limit),
+        row.get("unit", ""),
+    )
+
+
+class Interlocks(DrawnWidget):
+    MIN_REDRAW_INTERVAL_S = 0.2
+
     def shown_part(self, status: dict) -> object:
-        return status.get("interlocks")
+        return tuple(shown_row(row) for row in status.get("interlocks") or [])
 
-    def render(self) -> Text:
-        text = Text(HEADER, style=f"bold {MUTED}", no_wrap=True, overflow="crop")
-        for row in self.status.get("interlocks") or []:
-            margin, limit = row.get("margin"), row.get("limit")
-            mark, mark_style = STATE_MARKS.get(row.get("state"), (str(row.get("state")), INK))
-            text.append(f"\n{row.get('name', '?')!s:<{NAME_CELLS}}", INK)
-            text.append(f"{mark:<10}", mark_style)
-            text.append(f"{number(row.get('value'), '.3f'):>8}", INK)
-            text.append(f"{number(limit, '.3f'):>8}", MUTED)
-            text.append(f"{number(margin, '+.3f'):>9}  ", margin_style(margin, limit))
-            text.append_text(margin_bar(margin, limit))
-            text.append(f" {row.get('unit', '')}", MUTED)
-        return text
+    def draw(self) -> list[list[Run]]:
+        rows: list[list[Run]] = [[(HEADER, f"bold {MUTED}")]]
+        for name, state, value, limit, margin, style, cells, unit in self.shown or ():
+            mark, mark_style = STATE_MARKS.get(state, (str(state), INK))
+            rows.append(
+                [
+                    (f"{name:<{NAME_CELLS}}", INK),
+                    (f"{mark:<10}", mark_style),
+                    (f"{value:>8}", INK),
+                    (f"{limit:>8}", MUTED),
+                    (f"{margin:>9}  ", style),
+                    *margin_bar(cells, style),
+                    (f" {unit}", MUTED),
+                ]
+            )
+        return rows

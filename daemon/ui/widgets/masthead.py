@@ -24,8 +24,12 @@ class Masthead(StatusWidget):
         else:
             daemon = Text.assemble(("○ ", BAD), ("daemon unreachable", f"bold {BAD}"))
         estop = Text(f" {ESTOP_KEY_LABEL} ▸ E-STOP ", style=ESTOP_STYLE)
-        # The e-stop key is never crowded out: the daemon's address gives way first.
-        room = self.size.width - len(title) - len(estop) - 4
-        daemon.truncate(max(room, 0), overflow="ellipsis")
+        # The e-stop key is never crowded out: the daemon's address gives way first, then the
+        # rig's name.
+        room = self.size.width - len(estop) - 2
+        title.truncate(max(room, 1), overflow="ellipsis")
+        daemon_room = room - len(title) - 2
+        daemon = daemon if daemon_room >= 3 else Text()  # "● …" at the least
+        daemon.truncate(max(daemon_room, 1), overflow="ellipsis")
         gap = max(self.size.width - len(title) - len(daemon) - len(estop) - 2, 1)
         return Text.assemble(title, " " * gap, daemon, "  ", estop, no_wrap=True, overflow="crop")

@@ -4,11 +4,14 @@ from __future__ import annotations
 
 from rich.text import Text
 
-from daemon.ui.palette import BAD, GOOD, MUTED
+from daemon.ui.palette import BAD, GOOD, INK, MUTED
 from daemon.ui.widgets.base import NO_VALUE, StatusWidget, key_value, number
 
 
 class Recording(StatusWidget):
+    # The sample count changes with every status; twice a second is plenty to read it.
+    MIN_REDRAW_INTERVAL_S = 0.5
+
     def shown_part(self, status: dict) -> object:
         return status.get("recording")
 
@@ -19,16 +22,11 @@ class Recording(StatusWidget):
             key_value(text, "recording", NO_VALUE, MUTED)
             return text
         active = rec.get("active")
-        key_value(
-            text, "recording", "● REC" if active else "○ off", f"bold {BAD}" if active else MUTED
-        )
-        key_value(text, "run", str(rec.get("run_id") or NO_VALUE))
+        state, style = ("● REC", f"bold {BAD}") if active else ("○ off", MUTED)
+        key_value(text, "recording", state, style)
+        text.append(f" · run {rec.get('run_id') or NO_VALUE}", f"bold {INK}")
         key_value(text, "samples", number(rec.get("samples"), ",d"))
         dropped = rec.get("dropped")
-        key_value(
-            text,
-            "dropped",
-            number(dropped, ",d"),
-            BAD if isinstance(dropped, int) and dropped else GOOD,
-        )
+        text.append("  dropped ", MUTED)
+        text.append(number(dropped, ",d"), BAD if isinstance(dropped, int) and dropped else GOOD)
         return text

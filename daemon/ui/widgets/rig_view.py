@@ -10,12 +10,9 @@ from __future__ import annotations
 
 import math
 
-from rich.console import Group
-from rich.text import Text
-
-from daemon.ui.braille import BrailleCanvas
+from daemon.ui.braille import BrailleCanvas, Run
 from daemon.ui.palette import BAD, CART, MUTED, POLE, SETPOINT, TRACK, WARN
-from daemon.ui.widgets.base import StatusWidget, number
+from daemon.ui.widgets.base import DrawnWidget, number
 
 MARGIN_DOTS = 3
 CART_WIDTH_DOTS = 12
@@ -23,15 +20,24 @@ CART_HEIGHT_DOTS = 5
 DEFAULT_TRACK_M = 1.0
 
 
-class RigView(StatusWidget):
+class RigView(DrawnWidget):
     def shown_part(self, status: dict) -> object:
-        keys = ("x_m", "theta_rad", "setpoint_m", "state", "rig")
-        return tuple(status.get(key) for key in keys)
+        """Positions to the millimetre (as the scale prints x) and the angle to 0.01 rad
+        (under a dot at the drawn pendulum's length), so noise below that redraws nothing."""
+        x_m, theta, setpoint = (status.get(key) for key in ("x_m", "theta_rad", "setpoint_m"))
+        return (
+            round(x_m, 3) if isinstance(x_m, int | float) else None,
+            round(theta, 2) if isinstance(theta, int | float) else None,
+            round(setpoint, 3) if isinstance(setpoint, int | float) else None,
+            status.get("state") in ("FAULT", "ESTOP"),
+            status.get("rig"),
+        )
 
-    def render(self) -> Group:
+    def draw(self) -> list[list[Run]]:
         columns, rows = self.size.width, max(self.size.height - 1, 2)
         canvas = BrailleCanvas(columns, rows)
-        rig = self.status.get("rig") or {}
+        x_m, theta, setpoint, latched, rig = self.shown or (None, None, None, False, None)
+        rig = rig or {}
         track_m = float(rig.get("track_length_m") or DEFAULT_TRACK_M)
         half_m = track_m / 2.0
         dots_per_m = (canvas.width - 2 * MARGIN_DOTS) / track_m
@@ -43,23 +49,18 @@ class RigView(StatusWidget):
         pivot_y = canvas.height * 0.5
         track_y = pivot_y + CART_HEIGHT_DOTS
         self._draw_track(canvas, to_x, track_y, half_m, rig.get("soft_limit_m"))
-        x_m = self.status.get("x_m")
-        theta = self.status.get("theta_rad")
-        if isinstance(x_m, int | float) and isinstance(theta, int | float):
-            latched = self.status.get("state") in ("FAULT", "ESTOP")
+        if x_m is not None and theta is not None:
             self._draw_cart_and_pendulum(canvas, to_x(x_m), pivot_y, track_y, theta, latched)
-        setpoint = self.status.get("setpoint_m")
-        if isinstance(setpoint, int | float):
+        if setpoint is not None:
             marker = canvas.layer(SETPOINT)
             sx = to_x(setpoint)
             canvas.line(marker, sx - 2, track_y + 3, sx, track_y + 1)
             canvas.line(marker, sx, track_y + 1, sx + 2, track_y + 3)
-        scale = Text(no_wrap=True, overflow="crop", style=MUTED)
         left, right = f"−{half_m:.2f} m", f"+{half_m:.2f} m"
-        middle = f"x {number(x_m)} m" if isinstance(x_m, int | float) else ""
+        middle = f"x {number(x_m)} m" if x_m is not None else ""
         gap = max(columns - len(left) - len(right) - len(middle), 2)
-        scale.append(left + " " * (gap // 2) + middle + " " * (gap - gap // 2) + right)
-        return Group(canvas.to_text(), scale)
+        scale = left + " " * (gap // 2) + middle + " " * (gap - gap // 2) + right
+        return [*canvas.runs(), [(scale[:columns], MUTED)]]
 
     def _draw_track(self, canvas, to_x, track_y: float, half_m: float, soft_limit_m) -> None:
         track = canvas.layer(TRACK)

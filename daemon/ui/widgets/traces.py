@@ -12,11 +12,9 @@ import math
 from collections import deque
 from dataclasses import dataclass
 
-from rich.text import Text
-
-from daemon.ui.braille import BrailleCanvas
+from daemon.ui.braille import BrailleCanvas, Run
 from daemon.ui.palette import CART, GOOD, MUTED, POLE
-from daemon.ui.widgets.base import NO_VALUE, StatusWidget, number, wrap_deg
+from daemon.ui.widgets.base import NO_VALUE, DrawnWidget, number, wrap_deg
 
 WINDOW_S = 10.0
 LABEL_CELLS = 14
@@ -80,8 +78,8 @@ def plot_range(values: list[float], trace: Trace) -> tuple[float, float, float]:
 
 def plot(
     points: list[tuple[float, float]], t_end_s: float, columns: int, rows: int, trace: Trace
-) -> tuple[Text, float, float]:
-    """Braille plot of (t_s, value) over [t_end_s - WINDOW_S, t_end_s]; returns (text, low, high)."""
+) -> tuple[list[list[Run]], float, float]:
+    """Braille plot of (t_s, value) over [t_end_s - WINDOW_S, t_end_s]: (rows, low, high)."""
     canvas = BrailleCanvas(columns, rows)
     guide_layer, line = canvas.layer(MUTED), canvas.layer(trace.colour)
     values = [value for _, value in points]
@@ -104,10 +102,14 @@ def plot(
         else:
             canvas.line(line, *previous, *here)
         previous = here
-    return canvas.to_text(), low, high
+    return canvas.runs(), low, high
 
 
-class Traces(StatusWidget):
+class Traces(DrawnWidget):
+    # The plots scroll with every status; five redraws a second keep them smooth enough
+    # at a fraction of the cost (they are the dashboard's largest drawing).
+    MIN_REDRAW_INTERVAL_S = 0.2
+
     def __init__(self, drive_unit: str, **kwargs):
         super().__init__(**kwargs)
         self.drive_unit = drive_unit
@@ -127,25 +129,22 @@ class Traces(StatusWidget):
         while self.history and self.history[0][0] < sample[0] - WINDOW_S:
             self.history.popleft()
 
-    def render(self) -> Text:
+    def draw(self) -> list[list[Run]]:
         rows_each = max(self.size.height // len(TRACES), 1)
         columns = max(self.size.width - LABEL_CELLS - 1, 4)
         t_end = self.history[-1][0] if self.history else 0.0
-        text = Text(no_wrap=True, overflow="crop")
+        rows: list[list[Run]] = []
         for index, trace in enumerate(TRACES):
             unit = trace.unit or self.drive_unit
             values = [(sample[0], sample[index + 1]) for sample in self.history]
-            plot_text, low, high = plot(values, t_end, columns, rows_each, trace)
+            plot_rows, low, high = plot(values, t_end, columns, rows_each, trace)
             latest = number(values[-1][1], trace.spec) if values else NO_VALUE
             labels = [
                 (trace.title, f"bold {trace.colour}"),
                 (f"{latest} {unit}", "bold"),
                 (f"{low:+.3g}…{high:+.3g}", MUTED),
             ]
-            for row, line in enumerate(plot_text.split("\n")):
-                if text:
-                    text.append("\n")
-                label, style = labels[row] if row < len(labels) else ("", "")
-                text.append(f"{label:<{LABEL_CELLS}} ", style)
-                text.append_text(line)
-        return text
+            for row, runs in enumerate(plot_rows):
+                label, style = labels[row] if row < len(labels) else ("", None)
+                rows.append([(f"{label:<{LABEL_CELLS}.{LABEL_CELLS}} ", style), *runs])
+        return rows
