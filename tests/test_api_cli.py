@@ -11,7 +11,7 @@ from pathlib import Path
 import pytest
 from test_api_support import HANG_GUARD_S, RigDouble
 
-from daemon.api.commands import COMMANDS, SERVER_COMMANDS
+from daemon.operator_commands import COMMANDS, SERVER_COMMANDS
 from daemon.api.server import ApiServer
 from daemon.commands.ctl import VERBS
 from daemon.config import demo_config_path

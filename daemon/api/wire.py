@@ -17,7 +17,7 @@ from __future__ import annotations
 import json
 from dataclasses import dataclass
 
-from daemon.api.commands import BadRequest, validate_args
+from daemon.operator_commands import BadRequest, validate_args
 from daemon.strict_json import finite_or_null
 
 CLIENT_SOURCES = ("api", "cli", "dashboard")

@@ -19,6 +19,7 @@ from collections.abc import Callable
 
 from daemon.config import PoiseConfig
 from daemon.errors import CommandRefused
+from daemon.operator_commands import MOTION_COMMANDS
 from daemon.supervisor.decision import Decision, Output, Transition
 from daemon.supervisor.fault_hints import fault_hint
 from daemon.supervisor.interlocks import (
@@ -30,7 +31,7 @@ from daemon.supervisor.interlocks import (
     stopping_distance_m,
 )
 from daemon.supervisor.machine import LogEntry, StateMachine
-from daemon.supervisor.prechecks import MOTION_COMMANDS, Health, PrecheckLimits, prearm_failures
+from daemon.supervisor.prechecks import Health, PrecheckLimits, prearm_failures
 from daemon.supervisor.states import (
     COMMAND_NAMES,
     LATCHED_STATES,
