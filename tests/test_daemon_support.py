@@ -18,8 +18,9 @@ from daemon.config import parse_config
 from daemon.errors import CommandRefused
 from daemon.recording.schema import SAMPLE_COLUMN_NAMES
 from daemon.recording.store import get_run, open_for_reading, run_events, sample_chunks
-from daemon.runtime.embedded_sim import SimOptions
+from daemon.runtime.embedded_sim import RigLink, SimOptions
 from daemon.runtime.service import PoiseService
+from daemon.runtime.session import swing_up_when_still
 from daemon.supervisor import Output, State
 from protocol import Drive, FrameDecoder, Message, Stop
 from sim_device.faults import FaultPlan
@@ -61,7 +62,7 @@ def write_rig_config(
 async def running_service(
     tmp_path: Path, *, base: Path = KESTREL, extra: str = "", faults: FaultPlan | None = None,
     serve_api: bool = False, lockstep: bool = True, edits: dict[str, str] | None = None,
-    supply_v: float | None = None, encoder_noise_counts: float = 0.0,
+    supply_v: float | None = None, encoder_noise_counts: float = 0.0, link: RigLink = "pty",
 ) -> AsyncIterator[PoiseService]:
     """The daemon on the built-in simulated rig; ``supply_v`` fits the rig a supply measurement.
 
@@ -71,7 +72,7 @@ async def running_service(
     text = rig_config_text(tmp_path, base, extra, edits)
     options = SimOptions(
         lockstep=lockstep, faults=faults or FaultPlan(), supply_v=supply_v,
-        encoder_noise_counts=encoder_noise_counts,
+        encoder_noise_counts=encoder_noise_counts, link=link,
     )
     service = PoiseService(parse_config(text), text, sim=options, serve_api=serve_api)
     await service.start()
@@ -110,6 +111,21 @@ async def execute_when_still(service: PoiseService, command: str, args: dict, wi
             if "pendulum.hanging_still" not in refused.reason or service.cycle.t_s > deadline_s:
                 raise
         await run_for(service, 0.1)
+
+
+async def balancing(service: PoiseService) -> None:
+    """Home, arm, swing up, and balance for half a second of rig time."""
+    await homed_and_ready(service)
+    await swing_up_when_still(service)
+    assert await wait_for(service, State.BALANCE, State.FAULT, State.IDLE) is State.BALANCE
+    await run_for(service, 0.5)
+
+
+def frames_from_last_stop(service: PoiseService) -> tuple[list, list]:
+    """(frames before the last Stop the device received, frames from that Stop on)."""
+    frames = device_received(service)
+    at = max(i for i, m in enumerate(frames) if type(m) is Stop)
+    return frames[:at], frames[at:]
 
 
 def recorded_samples(service: PoiseService) -> list[dict]:
