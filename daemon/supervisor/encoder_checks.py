@@ -224,7 +224,9 @@ class EncoderChecks:
 
     @classmethod
     def from_config(cls, config: PoiseConfig) -> EncoderChecks:
-        from daemon.config.plant import plant_params  # the plant model (numpy), only once a config is read
+        from daemon.config.plant import (
+            plant_params,  # the plant model (numpy), only once a config is read
+        )
 
         params = plant_params(config)
         return cls(EncoderLimits.from_config(config, params), params)
