@@ -123,7 +123,7 @@ async def test_non_finite_status_values_go_out_as_null_so_every_line_is_strict_j
 BAD_REQUESTS = [
     (b"arm please\n", None, "request is not valid JSON"),
     (b"[1, 2]\n", None, "request must be a JSON object"),
-    (b'{"id": "\xff"}\n', None, "request is not UTF-8 text"),
+    (b'{"id": "\xff"}\n', None, "request is not UTF-8 text (byte 8 is 0xff)"),
     (b"[" * 5000 + b"\n", None, "request is nested too deeply"),
     (b'{"cmd": "arm"}\n', None, "request field 'id' must be an integer of at most 15 digits"),
     (b'{"id": true, "cmd": "arm"}\n', None, "request field 'id' must be an integer of at most"),
@@ -159,6 +159,11 @@ BAD_REQUESTS = [
         b'{"id": 10, "cmd": "setpoint", "args": {"x_m": -Infinity}}\n',
         10,
         "must be a finite number (got -inf)",
+    ),
+    (
+        b'{"id": 20, "cmd": "setpoint", "args": {"x_m": ' + b"9" * 400 + b"}}\n",
+        20,
+        "setpoint: argument 'x_m' must be a finite number (got 999999999",
     ),
     (
         b'{"id": 11, "cmd": "setpoint", "args": {"x_m": true}}\n',
