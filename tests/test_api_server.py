@@ -527,6 +527,25 @@ async def test_clients_beyond_the_limit_are_turned_away_but_may_still_send_an_es
         await first.close()
 
 
+async def test_silent_connections_beyond_the_limit_cannot_keep_an_estop_out(socket_path, rig):
+    limit = 2
+    async with ApiServer(rig, settings(socket_path, max_clients=limit)) as server:
+        held = [await LineClient.open(socket_path) for _ in range(limit)]
+        await server.wait_for_clients(limit)
+        silent = [await LineClient.open(socket_path) for _ in range(limit)]  # fill the e-stop lane
+        await server.wait_for_clients(limit, in_estop_lane=limit)
+        estop = await LineClient.open(socket_path)
+        estop.send({"id": 1, "cmd": "estop", "source": "cli"})
+        reply = await estop.read()
+        assert (reply["id"], reply["ok"]) == (1, True)
+        # The one that waited longest was cut off to make room, without a reply.
+        assert await silent[0].read() is None
+        assert server.stats()["estop_lane_cut_off"] == 1
+        for client in (*held, *silent, estop):
+            await client.close()
+    assert rig.executed == [("estop", {}, "cli")]
+
+
 async def test_client_subscription_ends_and_requests_fail_when_the_daemon_goes_away(
     socket_path, rig
 ):
