@@ -58,9 +58,15 @@ Validator = Callable[[object], object]
 
 
 def finite_number(value: object) -> float:
-    if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
+    if isinstance(value, bool) or not isinstance(value, int | float):
         raise ValueError("must be a finite number")
-    return float(value)
+    try:
+        number = float(value)
+    except OverflowError:  # an integer past the largest float
+        raise ValueError("must be a finite number") from None
+    if not math.isfinite(number):
+        raise ValueError("must be a finite number")
+    return number
 
 
 def positive_number(value: object) -> float:

@@ -31,11 +31,13 @@ WREN = REPO / "configs" / "wren-2.toml"
 
 
 def rig_config_text(
-    tmp_path: Path, base: Path = KESTREL, extra: str = "", edits: dict[str, str] | None = None
+    tmp_path: Path, base: Path = KESTREL, extra: str = "", edits: dict[str, str] | None = None,
+    api: str = "",
 ) -> str:
     """``base`` with its run store and control socket moved into ``tmp_path``, plus ``extra`` sections.
 
-    ``edits`` maps a key to its new value text, for keys already in ``base`` (``"device_watchdog_ms"``).
+    ``edits`` maps a key to its new value text, for keys already in ``base`` (``"device_watchdog_ms"``);
+    ``api`` is more lines for the ``[api]`` section.
     """
     lines = []
     for line in base.read_text().splitlines():
@@ -45,7 +47,7 @@ def rig_config_text(
         elif line.startswith("db_path"):
             line = f'db_path = "{tmp_path / "runs.db"}"'
         elif line == "[api]":
-            line += f'\nsocket_path = "{tmp_path / "poise.sock"}"'
+            line += f'\nsocket_path = "{tmp_path / "poise.sock"}"\n{api}'.rstrip()
         lines.append(line)
     return "\n".join(lines) + "\n" + extra
 
@@ -63,13 +65,14 @@ async def running_service(
     tmp_path: Path, *, base: Path = KESTREL, extra: str = "", faults: FaultPlan | None = None,
     serve_api: bool = False, lockstep: bool = True, edits: dict[str, str] | None = None,
     supply_v: float | None = None, encoder_noise_counts: float = 0.0, link: RigLink = "pty",
+    api: str = "",
 ) -> AsyncIterator[PoiseService]:
     """The daemon on the built-in simulated rig; ``supply_v`` fits the rig a supply measurement.
 
     The rig's encoders have no noise beyond quantisation unless ``encoder_noise_counts`` is given,
     so a test's figures do not depend on a seed.
     """
-    text = rig_config_text(tmp_path, base, extra, edits)
+    text = rig_config_text(tmp_path, base, extra, edits, api)
     options = SimOptions(
         lockstep=lockstep, faults=faults or FaultPlan(), supply_v=supply_v,
         encoder_noise_counts=encoder_noise_counts, link=link,
