@@ -26,8 +26,8 @@ from hypothesis import strategies as st
 from test_api_support import HANG_GUARD_S
 from test_daemon_support import running_service
 
-from daemon.api.commands import COMMANDS
 from daemon.api.wire import CLIENT_SOURCES, REQUEST_FIELDS
+from daemon.operator_commands import COMMANDS
 
 EXAMPLES = 3000
 MAX_LINE_BYTES = 4096  # api.max_line_bytes for this daemon: over-long lines stay cheap to send
