@@ -5,6 +5,7 @@ from __future__ import annotations
 import os
 import signal
 
+import pytest
 from test_daemon_support import (
     balancing,
     device_received,
@@ -15,14 +16,16 @@ from test_daemon_support import (
 )
 
 from daemon.api.client import ApiClient
+from daemon.runtime.embedded_sim import RIG_LINKS
 from daemon.supervisor import Output, State
 from protocol import Drive, Stop
 
 CATEGORY_0 = "[stop]\ncategory = 0\n"
 
 
-async def test_estop_through_the_api_during_balance_makes_the_next_command_frame_a_stop(tmp_path):
-    async with running_service(tmp_path, extra=CATEGORY_0, serve_api=True) as service:
+@pytest.mark.parametrize("link", RIG_LINKS)
+async def test_estop_through_the_api_during_balance_makes_the_next_command_frame_a_stop(tmp_path, link):
+    async with running_service(tmp_path, extra=CATEGORY_0, serve_api=True, link=link) as service:
         await balancing(service)
         async with await ApiClient.connect(service.config.api.socket_path) as client:
             result = await client.request("estop")

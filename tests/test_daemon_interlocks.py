@@ -22,6 +22,7 @@ from test_daemon_support import (
 )
 
 from daemon.errors import CommandRefused
+from daemon.runtime.embedded_sim import RIG_LINKS
 from daemon.supervisor import Output, State
 from protocol import Stop
 from sim_device.faults import DriverFault, FaultPlan, Stall, StuckSwitch
@@ -62,8 +63,9 @@ async def test_device_reset_trips_device_reset_and_the_link_comes_back(tmp_path)
         await reset_to_idle(service)
 
 
-async def test_stalled_device_trips_link_timeout_and_the_device_gets_a_stop(tmp_path):
-    async with running_service(tmp_path) as service:
+@pytest.mark.parametrize("link", RIG_LINKS)
+async def test_stalled_device_trips_link_timeout_and_the_device_gets_a_stop(tmp_path, link):
+    async with running_service(tmp_path, link=link) as service:
         service.start_recording("test")
         await homed_and_ready(service)
         service.rig.schedule_fault(service.rig.sim_time_s, Stall(duration_ms=1500))
@@ -76,8 +78,9 @@ async def test_stalled_device_trips_link_timeout_and_the_device_gets_a_stop(tmp_
         await reset_to_idle(service)
 
 
-async def test_cut_link_trips_link_lost(tmp_path):
-    async with running_service(tmp_path) as service:
+@pytest.mark.parametrize("link", RIG_LINKS)
+async def test_cut_link_trips_link_lost(tmp_path, link):
+    async with running_service(tmp_path, link=link) as service:
         service.start_recording("test")
         await homed_and_ready(service)
         service.rig.transport.close()  # the cable is pulled: the pty goes away
