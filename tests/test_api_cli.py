@@ -5,19 +5,15 @@ from __future__ import annotations
 import asyncio
 import json
 import socket
-import sys
-from pathlib import Path
 
 import pytest
-from test_api_support import HANG_GUARD_S
+from test_api_support import poise
 from test_daemon_support import execute_when_still, homed_and_ready, running_service
 
 from daemon.commands.ctl import VERBS
 from daemon.config import demo_config_path
 from daemon.operator_commands import COMMANDS, SERVER_COMMANDS
 from daemon.recording.store import get_run, open_for_reading
-
-REPO = Path(__file__).resolve().parents[1]
 
 
 @pytest.fixture
@@ -30,21 +26,6 @@ async def daemon(tmp_path):
     """The real daemon on the built-in lockstep rig, its control API on the config's socket."""
     async with running_service(tmp_path, serve_api=True) as service:
         yield service
-
-
-async def poise(*argv: str) -> tuple[int, str, str]:
-    process = await asyncio.create_subprocess_exec(
-        sys.executable,
-        "-m",
-        "daemon.cli",
-        *argv,
-        cwd=REPO,
-        stdout=asyncio.subprocess.PIPE,
-        stderr=asyncio.subprocess.PIPE,
-    )
-    async with asyncio.timeout(HANG_GUARD_S):
-        out, err = await process.communicate()
-    return process.returncode, out.decode(), err.decode()
 
 
 def test_every_api_command_has_a_cli_verb():

@@ -15,6 +15,7 @@ import asyncio
 import heapq
 import itertools
 import json
+import sys
 from collections.abc import Callable
 from pathlib import Path
 
@@ -25,6 +26,18 @@ from daemon.supervisor import Event, Supervisor
 # Bounds waits in the tests so a broken server fails a test instead of hanging it;
 # never used to judge speed.
 HANG_GUARD_S = 30.0
+REPO = Path(__file__).resolve().parents[1]
+
+
+async def poise(*argv: str, cwd: Path = REPO, hang_guard_s: float = HANG_GUARD_S) -> tuple[int, str, str]:
+    """Run ``poise ARGV`` as its own process; (exit status, stdout, stderr)."""
+    process = await asyncio.create_subprocess_exec(
+        sys.executable, "-m", "daemon.cli", *argv,
+        cwd=cwd, stdout=asyncio.subprocess.PIPE, stderr=asyncio.subprocess.PIPE,
+    )
+    async with asyncio.timeout(hang_guard_s):
+        out, err = await process.communicate()
+    return process.returncode, out.decode(), err.decode()
 
 
 class RigDouble:

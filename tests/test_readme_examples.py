@@ -7,13 +7,12 @@ trips over it.
 
 from __future__ import annotations
 
-import asyncio
 import re
 import shlex
-import sys
 from pathlib import Path
 
 import pytest
+from test_api_support import poise
 
 from daemon.cli import build_parser
 
@@ -77,21 +76,6 @@ def test_ci_runs_the_readmes_test_command_verbatim():
     assert tests in (REPO / ".ci" / "run").read_text(encoding="utf-8").splitlines()
 
 
-async def poise(tmp_path: Path, *argv: str) -> tuple[int, str, str]:
-    process = await asyncio.create_subprocess_exec(
-        sys.executable,
-        "-m",
-        "daemon.cli",
-        *argv,
-        cwd=tmp_path,
-        stdout=asyncio.subprocess.PIPE,
-        stderr=asyncio.subprocess.PIPE,
-    )
-    async with asyncio.timeout(HANG_GUARD_S):
-        out, err = await process.communicate()
-    return process.returncode, out.decode(), err.decode()
-
-
 #: Examples that run without hardware, in README's order of the workflow (the later ones read
 #: the recording the session before them makes in the test's folder).
 RUNNABLE = [
@@ -116,7 +100,7 @@ async def test_the_readme_examples_that_need_no_hardware_run_and_succeed(tmp_pat
         argv = with_placeholders(example)
         if argv[0] == "export" and argv[1].isdigit():
             argv[1] = "1"  # README's run id; the test's store holds the session's run only
-        code, _out, err = await poise(tmp_path, *argv)
+        code, _out, err = await poise(*argv, cwd=tmp_path, hang_guard_s=HANG_GUARD_S)
         assert code == 0, f"{example}: exit {code}\n{err}"
         assert "Traceback" not in err
     assert list(tmp_path.glob("*.csv")), "the export wrote no file"
