@@ -268,7 +268,7 @@ async def test_homing_shows_its_phase_and_distance_then_the_travel_it_measured_a
     tmp_path,
 ):
     # A slow seek, so that homing spans many status lines however fast the lockstep rig runs.
-    slow = "[homing]\nspeed_mps = 0.03\n"
+    slow = "[homing]\nspeed_mps = 0.06\n"
     async with running_service(tmp_path, serve_api=True, extra=slow) as service:
         track = service.config.track
         # Switch to switch: the track length less both switch insets (the config's own numbers).
