@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import json
 import math
+import os
 import shlex
 import signal
 import sqlite3
@@ -36,6 +37,7 @@ from daemon.recording import (
 from daemon.recording.modes import MODE_PROGRESSION
 from daemon.recording.schema import APPLICATION_ID, MIGRATIONS, MODE_INDEX
 from daemon.recording.store import get_run, list_runs, open_for_reading, run_events, sample_chunks
+from daemon.recording.writer_files import DISK_RESERVE_BYTES
 from daemon.supervisor import State, state_code_table
 
 REPO = Path(__file__).resolve().parents[1]
@@ -474,6 +476,50 @@ def test_a_really_full_disk_still_gets_the_failure_stored(tmp_path):
     assert run.outcome == WRITE_FAILED and run.samples_written > 0
     assert [kind for _t, kind, _s, _d in run_events(conn, 1)] == ["recorder.error"]
     assert stored_rows(copy, 1) == [sample_row(i) for i in range(run.samples_written)]
+
+
+FULL_DISK_STARTER = textwrap.dedent(
+    """
+    import sys
+    sys.path.insert(0, sys.argv[2])
+    from daemon.recording import Recorder, RecordingError
+
+    with open(sys.argv[1] + ".filler", "wb", buffering=0) as filler:  # fill the disk to its end
+        try:
+            while True:
+                filler.write(bytes(4096))
+        except OSError:
+            pass
+    try:
+        Recorder(sys.argv[1])
+    except RecordingError as exc:
+        print(exc)
+    """
+)
+
+
+def test_a_writer_holds_its_disk_reserve_in_allocated_blocks_and_frees_them_on_a_failure(tmp_path):
+    recorder = Recorder(tmp_path / "runs.db")
+    [lock] = tmp_path.glob("runs.db.writer-*.lock")
+    # st_blocks counts 512-byte units allocated (POSIX stat, sys/stat.h): a hole would count none.
+    assert lock.stat().st_blocks * 512 >= DISK_RESERVE_BYTES
+    pid_line = f"{os.getpid()}\n".encode()
+    recorder._locks.give_up_reserve()  # what a failed write does first
+    assert lock.read_bytes() == pid_line and lock.stat().st_blocks * 512 < DISK_RESERVE_BYTES
+    recorder.close()
+
+
+def test_a_disk_too_full_for_the_reserve_refuses_to_start_recording_and_says_so(tmp_path):
+    disk = tmp_path / "disk"
+    disk.mkdir()
+    starter = tmp_path / "starter.py"
+    starter.write_text(FULL_DISK_STARTER)
+    start = shlex.join(map(str, [sys.executable, starter, disk / "runs.db", Path(__file__).parent]))
+    done = in_small_file_system(disk, start)
+    assert done.returncode == 0, done.stderr[-2000:]
+    error = done.stdout.strip()
+    assert "no room for the writer's 128 KiB failure reserve" in error, error
+    assert "No space left on device" in error
 
 
 def test_closing_with_a_run_open_ends_it_as_aborted(tmp_path):

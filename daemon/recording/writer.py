@@ -78,8 +78,9 @@ with the reason, and the end of the open run, outcome ``write_failed``, with
 its summary of what was committed. That last transaction finds room where
 there is any: under a size cap (``max_db_bytes``) the writer keeps
 ``FAILURE_RESERVE_BYTES`` free for it and gives them up now; on a full disk
-it reuses the space in the ``-wal`` file that the rolled-back transaction
-had already taken. If even that fails, the reason says so, and it still
+it frees the disk reserve its lock file holds (``writer_files.py``) and the
+last transaction is written into that room. If even that fails, the reason
+says so, and it still
 reaches ``stats().error`` and ``on_error(reason)`` (called from the writer
 thread; the daemon trips on it and logs it). From then on nothing more is
 written: queued and later samples are counted as ``lost``, ``stats().active``
@@ -653,6 +654,7 @@ class Recorder:
     def _store_failure(self, reason: str, rolled_back: int) -> None:
         """One last transaction: the error event, and the open run ended as WRITE_FAILED."""
         conn = self._conn
+        self._locks.give_up_reserve()  # room on a full disk
         if self._max_db_bytes is not None:
             limit_size(conn, self._max_db_bytes, keep_reserve=False)  # the reserve is for this
         run = self._run

@@ -4,7 +4,11 @@ A store ``runs.db`` may have any number of writer processes (two terminals, two
 rigs sharing one config folder). Beside it live:
 
 ``runs.db.writer-TOKEN.lock`` — one per live writer, TOKEN random (64 bits,
-hex). The writer holds an exclusive ``flock`` on it for its lifetime and stores
+hex). Its first line is the writer's pid; after it, ``DISK_RESERVE_BYTES``
+allocated on the disk are the writer's reserve for a full disk: when a write
+fails, the writer truncates the file to give them up and stores the failure
+in the room they leave (a full disk would otherwise have no room even for
+that). The writer holds an exclusive ``flock`` on it for its lifetime and stores
 TOKEN in ``runs.writer_token`` of every run it starts. The kernel drops the
 lock when the process dies, however it dies (``kill -9``, a crash), so a run
 whose ``outcome`` is still NULL is being recorded if and only if its writer's
@@ -69,6 +73,8 @@ from pathlib import Path
 
 from daemon.recording.errors import RecordingError
 
+DISK_RESERVE_BYTES = 128 * 1024
+"""Held by each writer's lock file, given up to store a write failure on a full disk."""
 SETUP_WAIT_S = 10.0
 """How long a starting writer waits for others to finish setting up (each takes milliseconds)."""
 _SETUP_POLL_S = 0.005
@@ -213,7 +219,22 @@ class WriterLocks:
             os.close(self._legacy_fd)
             raise
         fcntl.flock(self._fd, fcntl.LOCK_EX | fcntl.LOCK_NB)  # a new file: no one else has it
-        os.write(self._fd, f"{os.getpid()}\n".encode())
+        pid_line = f"{os.getpid()}\n".encode()
+        try:
+            os.write(self._fd, pid_line)
+            os.posix_fallocate(self._fd, len(pid_line), DISK_RESERVE_BYTES)  # blocks, not a hole
+        except OSError as exc:
+            self.release()
+            raise RecordingError(
+                f"run store {db_path}: no room for the writer's {DISK_RESERVE_BYTES // 1024} KiB "
+                f"failure reserve in {self.path}: {_describe(exc)}"
+            ) from None
+        self._reserve_at = len(pid_line)
+
+    def give_up_reserve(self) -> None:
+        """Free the disk reserve (the store just failed a write): the failure is stored in it."""
+        if self._fd >= 0:
+            os.ftruncate(self._fd, self._reserve_at)
 
     def release(self) -> None:
         """Give up both locks and delete this writer's lock file. Idempotent."""
