@@ -328,9 +328,10 @@ async def test_the_rig_link_panel_shows_loop_lag_and_the_worst_read_gap_against_
 
 
 async def test_a_latched_fault_shows_its_hint_and_says_plainly_when_it_has_latched_again(tmp_path):
-    # The simulated motor driver reports a fault twice; the first is reset from the dashboard,
-    # well before the second comes even on a lockstep rig running a hundred times real time.
-    faults = FaultPlan(events=((0.5, DriverFault()), (45.0, DriverFault())))
+    # The simulated motor driver reports a fault twice, the first after the rig's power-up flag
+    # has been reset; the first is reset from the dashboard, well before the second comes even on
+    # a lockstep rig running a hundred times real time.
+    faults = FaultPlan(events=((2.0, DriverFault()), (45.0, DriverFault())))
     hint = FAULT_HINTS["device.driver"]
     async with running_service(tmp_path, serve_api=True, faults=faults) as service:
         app = dashboard(service)
