@@ -381,6 +381,9 @@ class PoiseService:
     def _clear_device_faults(self, faults: int) -> None:
         cycle = self.cycle
         cycle.fault_mask = ~faults & 0xFFFF
+        # A motion command right after the reset is judged on the flags as they are now, not on
+        # the last sample's (which may be all the daemon has seen since the reset).
+        self.supervisor.faults &= cycle.fault_mask
 
         def answered(future: asyncio.Future) -> None:
             cycle.fault_mask = 0xFFFF
