@@ -83,6 +83,7 @@ from sim_device.faults import (
     FaultEvent,
     FaultSchedule,
     Impulse,
+    PendulumEncoderDead,
     Reset,
     Stall,
     StuckSwitch,
@@ -451,7 +452,9 @@ class SimulatedDevice:
         elif isinstance(event, DriverFault):
             self._latch_fault(F_DRIVER, NAN)
         elif isinstance(event, CartEncoderDead):
-            self.sensors.stop_cart_counting(self.plant.state[0])
+            self.sensors.stop_cart_counting(self.plant.x_m)
+        elif isinstance(event, PendulumEncoderDead):
+            self.sensors.stop_pendulum_counting(self.plant.theta_rad)
         elif isinstance(event, SupplySag):
             self.supply_v = event.supply_v
         else:

@@ -36,6 +36,7 @@ __all__ = [
     "FaultSchedule",
     "FaultyLine",
     "Impulse",
+    "PendulumEncoderDead",
     "Reset",
     "Stall",
     "StuckSwitch",
@@ -83,6 +84,11 @@ class CartEncoderDead:
 
 
 @dataclass(frozen=True)
+class PendulumEncoderDead:
+    """The pendulum encoder stops counting (unplugged, or its shaft coupling slipped): its count freezes."""
+
+
+@dataclass(frozen=True)
 class SupplySag:
     """The supply voltage the device measures drops to ``supply_v``, short of the device's own lockout."""
 
@@ -98,7 +104,15 @@ class Impulse:
 
 
 FaultEvent = (
-    Stall | Reset | EncoderGlitch | StuckSwitch | DriverFault | Impulse | CartEncoderDead | SupplySag
+    Stall
+    | Reset
+    | EncoderGlitch
+    | StuckSwitch
+    | DriverFault
+    | Impulse
+    | CartEncoderDead
+    | PendulumEncoderDead
+    | SupplySag
 )
 
 

@@ -69,6 +69,7 @@ __all__ = [
     "PlantParams",
     "State",
     "TrackParams",
+    "acceleration_function",
     "applied_command",
     "cart_counts",
     "cart_force",
@@ -131,12 +132,13 @@ class PlantParams:
 Accelerations = Callable[[float, float, float, float, float], tuple[float, float]]
 
 
-def _acceleration_function(params: PlantParams) -> Accelerations:
+def acceleration_function(params: PlantParams) -> Accelerations:
     """Build ``accel(v, sin th, cos th, w, drive_force_at_rest) -> (a, alpha)``.
 
     The drive's back-EMF is folded into the viscous coefficient, so the only
     input is the force the drive gives at rest, ``gain * effective_command``.
-    Pure float arithmetic: this runs 4 times per RK4 sub-step.
+    Pure float arithmetic: this runs 4 times per RK4 sub-step (and once a sample in the
+    daemon's dead-encoder check, :mod:`daemon.supervisor.encoder_checks`).
     """
     ml = params.pendulum_mass_kg * params.com_distance_m
     mgl = ml * params.gravity_mps2
@@ -172,7 +174,7 @@ def state_derivative(params: PlantParams, state: State, command: float) -> State
     """``d/dt [x, v, theta, omega]`` of the free (not held, not at an end stop) plant."""
     _x, v, th, w = state
     f_rest = drive_gains(params.drive)[0] * effective_command(params.drive, command)
-    a, alpha = _acceleration_function(params)(v, math.sin(th), math.cos(th), w, f_rest)
+    a, alpha = acceleration_function(params)(v, math.sin(th), math.cos(th), w, f_rest)
     return v, a, w, alpha
 
 
@@ -286,7 +288,7 @@ class Plant:
             raise ValueError(f"Plant: substeps must be >= 1 (got {substeps!r})")
         self.params = params
         self.substeps = substeps
-        self._accel = _acceleration_function(params)
+        self._accel = acceleration_function(params)
         self._gain = drive_gains(params.drive)[0]
         self._ml = params.pendulum_mass_kg * params.com_distance_m
         self._jp = params.pivot_inertia_kgm2

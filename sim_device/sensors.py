@@ -80,6 +80,7 @@ class Sensors:
         self.cart_offset_counts = 0
         self.pendulum_offset_counts = 0
         self.cart_dead_at_m: float | None = None
+        self.pendulum_dead_at_rad: float | None = None
         self._cart_counts_per_m = params.cart_counts_per_m
         self._pendulum_counts_per_rev = params.pendulum_counts_per_rev
         self._cart_noise_m = params.cart_noise_counts / params.cart_counts_per_m
@@ -104,6 +105,10 @@ class Sensors:
         """The cart encoder stops counting (unplugged, or its belt slipped): it reads ``x_m`` from now on."""
         self.cart_dead_at_m = x_m
 
+    def stop_pendulum_counting(self, theta_rad: float) -> None:
+        """The pendulum encoder stops counting: it reads ``theta_rad`` from now on."""
+        self.pendulum_dead_at_rad = theta_rad
+
     @property
     def jittery(self) -> bool:
         return self.params.jitter_us > 0.0
@@ -120,6 +125,8 @@ class Sensors:
             theta_rad += self._rng.gauss(0.0, self._pendulum_noise_rad)
         if self.cart_dead_at_m is not None:
             x_m = self.cart_dead_at_m
+        if self.pendulum_dead_at_rad is not None:
+            theta_rad = self.pendulum_dead_at_rad
         cart = cart_counts(x_m, self._cart_counts_per_m) + self.cart_offset_counts
         pendulum = pendulum_counts(theta_rad, self._pendulum_counts_per_rev) + self.pendulum_offset_counts
         if I32_MIN <= cart <= I32_MAX and I32_MIN <= pendulum <= I32_MAX:  # wrap_i32 has nothing to do

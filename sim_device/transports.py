@@ -5,6 +5,9 @@
 - :class:`TcpTransport` — a listener on loopback, reachable with pyserial's
   ``socket://127.0.0.1:PORT`` URL. One host at a time; a new connection
   replaces the old one, as reopening a serial port would.
+- :class:`SocketPairTransport` — the device end of a Unix stream socket pair
+  whose other end a host in the same process takes (the daemon's built-in rig
+  without a pty); again one host at a time.
 - :class:`InProcessPipe` — two connected ends inside one event loop, for unit
   tests and benchmarks; delivery is in order and never loses bytes.
 
@@ -27,7 +30,14 @@ from abc import ABC, abstractmethod
 from collections import deque
 from collections.abc import Callable
 
-__all__ = ["InProcessPipe", "PipeEnd", "PtyTransport", "TcpTransport", "Transport"]
+__all__ = [
+    "InProcessPipe",
+    "PipeEnd",
+    "PtyTransport",
+    "SocketPairTransport",
+    "TcpTransport",
+    "Transport",
+]
 
 OnBytes = Callable[[bytes], None]
 READ_CHUNK = 65536
@@ -119,50 +129,30 @@ class PtyTransport(Transport):
         self._master = self._slave = -1
 
 
-class TcpTransport(Transport):
-    """A TCP listener on ``host`` (loopback by default); ``port=0`` picks a free port."""
+class _OneHostStream(Transport):
+    """A transport whose host end is one connected stream socket at a time.
 
-    def __init__(self, port: int, host: str = "127.0.0.1"):
-        if not 0 <= port <= 65535:
-            raise ValueError(f"TCP port must be 0..65535 (got {port})")
-        self._host = host
-        self._port = port
-        self._listener: socket.socket | None = None
+    A new host replaces the old one, as reopening a serial port would; a host
+    that hangs up leaves the device talking to nobody (its bytes are dropped
+    and counted) until the next one comes.
+    """
+
+    def __init__(self) -> None:
         self._client: socket.socket | None = None
         self._loop: asyncio.AbstractEventLoop | None = None
         self._on_bytes: OnBytes | None = None
-
-    @property
-    def where(self) -> str:
-        return f"socket://{self._host}:{self._port}"
 
     @property
     def connected(self) -> bool:
         return self._client is not None
 
     def open(self, loop: asyncio.AbstractEventLoop, on_bytes: OnBytes) -> None:
-        listener = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
-        listener.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
-        try:
-            listener.bind((self._host, self._port))
-        except OSError as exc:
-            listener.close()
-            raise OSError(exc.errno, f"cannot listen on {self._host}:{self._port}: {exc.strerror}") from None
-        listener.listen(1)
-        listener.setblocking(False)
-        self._port = listener.getsockname()[1]
-        self._listener, self._loop, self._on_bytes = listener, loop, on_bytes
-        loop.add_reader(listener.fileno(), self._accept)
+        self._loop, self._on_bytes = loop, on_bytes
 
-    def _accept(self) -> None:
-        assert self._listener is not None and self._loop is not None
-        try:
-            client, _address = self._listener.accept()
-        except (BlockingIOError, InterruptedError):
-            return
+    def _take_client(self, client: socket.socket) -> None:
+        assert self._loop is not None, "open() the transport first"
         self._drop_client()
         client.setblocking(False)
-        client.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
         self._client = client
         self._loop.add_reader(client.fileno(), self._readable)
 
@@ -206,11 +196,70 @@ class TcpTransport(Transport):
 
     def close(self) -> None:
         self._drop_client()
+
+
+class TcpTransport(_OneHostStream):
+    """A TCP listener on ``host`` (loopback by default); ``port=0`` picks a free port."""
+
+    def __init__(self, port: int, host: str = "127.0.0.1"):
+        if not 0 <= port <= 65535:
+            raise ValueError(f"TCP port must be 0..65535 (got {port})")
+        super().__init__()
+        self._host = host
+        self._port = port
+        self._listener: socket.socket | None = None
+
+    @property
+    def where(self) -> str:
+        return f"socket://{self._host}:{self._port}"
+
+    def open(self, loop: asyncio.AbstractEventLoop, on_bytes: OnBytes) -> None:
+        listener = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
+        listener.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+        try:
+            listener.bind((self._host, self._port))
+        except OSError as exc:
+            listener.close()
+            raise OSError(exc.errno, f"cannot listen on {self._host}:{self._port}: {exc.strerror}") from None
+        listener.listen(1)
+        listener.setblocking(False)
+        self._port = listener.getsockname()[1]
+        self._listener = listener
+        super().open(loop, on_bytes)
+        loop.add_reader(listener.fileno(), self._accept)
+
+    def _accept(self) -> None:
+        assert self._listener is not None
+        try:
+            client, _address = self._listener.accept()
+        except (BlockingIOError, InterruptedError):
+            return
+        client.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
+        self._take_client(client)
+
+    def close(self) -> None:
+        super().close()
         if self._listener is not None:
             if self._loop is not None and not self._loop.is_closed():
                 self._loop.remove_reader(self._listener.fileno())
             self._listener.close()
             self._listener = None
+
+
+class SocketPairTransport(_OneHostStream):
+    """The device end of a Unix stream socket pair; a host in the same process calls
+    :meth:`connect_host` for the other end (each call makes a new pair, like reopening a port).
+    """
+
+    @property
+    def where(self) -> str:
+        return "socket pair (in process)"
+
+    def connect_host(self) -> socket.socket:
+        """A new connected pair: the device keeps one end, the caller gets the other."""
+        device_end, host_end = socket.socketpair(socket.AF_UNIX, socket.SOCK_STREAM)
+        self._take_client(device_end)
+        return host_end
 
 
 class InProcessPipe:

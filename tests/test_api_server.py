@@ -123,7 +123,7 @@ async def test_non_finite_status_values_go_out_as_null_so_every_line_is_strict_j
 BAD_REQUESTS = [
     (b"arm please\n", None, "request is not valid JSON"),
     (b"[1, 2]\n", None, "request must be a JSON object"),
-    (b'{"id": "\xff"}\n', None, "request is not UTF-8 text"),
+    (b'{"id": "\xff"}\n', None, "request is not UTF-8 text (byte 8 is 0xff)"),
     (b"[" * 5000 + b"\n", None, "request is nested too deeply"),
     (b'{"cmd": "arm"}\n', None, "request field 'id' must be an integer of at most 15 digits"),
     (b'{"id": true, "cmd": "arm"}\n', None, "request field 'id' must be an integer of at most"),
@@ -159,6 +159,11 @@ BAD_REQUESTS = [
         b'{"id": 10, "cmd": "setpoint", "args": {"x_m": -Infinity}}\n',
         10,
         "must be a finite number (got -inf)",
+    ),
+    (
+        b'{"id": 20, "cmd": "setpoint", "args": {"x_m": ' + b"9" * 400 + b"}}\n",
+        20,
+        "setpoint: argument 'x_m' must be a finite number (got 999999999",
     ),
     (
         b'{"id": 11, "cmd": "setpoint", "args": {"x_m": true}}\n',
@@ -520,6 +525,25 @@ async def test_clients_beyond_the_limit_are_turned_away_but_may_still_send_an_es
         stats = server.stats()
         assert (stats["clients_turned_away"], stats["estops_beyond_the_limit"]) == (2, 1)
         await first.close()
+
+
+async def test_silent_connections_beyond_the_limit_cannot_keep_an_estop_out(socket_path, rig):
+    limit = 2
+    async with ApiServer(rig, settings(socket_path, max_clients=limit)) as server:
+        held = [await LineClient.open(socket_path) for _ in range(limit)]
+        await server.wait_for_clients(limit)
+        silent = [await LineClient.open(socket_path) for _ in range(limit)]  # fill the e-stop lane
+        await server.wait_for_clients(limit, in_estop_lane=limit)
+        estop = await LineClient.open(socket_path)
+        estop.send({"id": 1, "cmd": "estop", "source": "cli"})
+        reply = await estop.read()
+        assert (reply["id"], reply["ok"]) == (1, True)
+        # The one that waited longest was cut off to make room, without a reply.
+        assert await silent[0].read() is None
+        assert server.stats()["estop_lane_cut_off"] == 1
+        for client in (*held, *silent, estop):
+            await client.close()
+    assert rig.executed == [("estop", {}, "cli")]
 
 
 async def test_client_subscription_ends_and_requests_fail_when_the_daemon_goes_away(

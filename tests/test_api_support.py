@@ -1,9 +1,12 @@
 """Shared pieces for the control API tests: a stand-in target, a manual clock, a raw line client.
 
-``RigDouble`` is a test double of the supervisor, nothing more: it records the
-commands it accepts and refuses those it is told to, so the tests can show that
-a bad request reaches nothing. End-to-end tests with the real supervisor live
-with the daemon's tests.
+``RigDouble`` stands in for the daemon behind the server in the server's own
+tests (framing, queues, rate limits, slow clients): it records the commands it
+accepts and refuses those it is told to, so the tests can show that a bad
+request reaches nothing. Its status is a real supervisor's (the demo rig's, at
+rest), so the lines the server encodes have the daemon's shape; two keys are
+added for the tests. Commands against the real daemon and its supervisor are
+tested in test_api_cli.py and the daemon's tests.
 """
 
 from __future__ import annotations
@@ -12,14 +15,29 @@ import asyncio
 import heapq
 import itertools
 import json
+import sys
 from collections.abc import Callable
 from pathlib import Path
 
+from daemon.config import demo_config_path, parse_config
 from daemon.errors import CommandRefused
+from daemon.supervisor import Event, Supervisor
 
 # Bounds waits in the tests so a broken server fails a test instead of hanging it;
 # never used to judge speed.
 HANG_GUARD_S = 30.0
+REPO = Path(__file__).resolve().parents[1]
+
+
+async def poise(*argv: str, cwd: Path = REPO, hang_guard_s: float = HANG_GUARD_S) -> tuple[int, str, str]:
+    """Run ``poise ARGV`` as its own process; (exit status, stdout, stderr)."""
+    process = await asyncio.create_subprocess_exec(
+        sys.executable, "-m", "daemon.cli", *argv,
+        cwd=cwd, stdout=asyncio.subprocess.PIPE, stderr=asyncio.subprocess.PIPE,
+    )
+    async with asyncio.timeout(hang_guard_s):
+        out, err = await process.communicate()
+    return process.returncode, out.decode(), err.decode()
 
 
 class RigDouble:
@@ -30,6 +48,8 @@ class RigDouble:
         self.refusals: dict[str, str] = {}
         self.status_calls = 0
         self.padding = ""  # makes status lines as long as a test needs
+        self._supervisor = Supervisor(parse_config(demo_config_path().read_text()), lambda: 0.0)
+        self._supervisor.notify(Event.LINK_UP, "link", 0.0)
 
     def execute(self, command: str, args: dict, source: str) -> dict:
         if command in self.refusals:
@@ -40,12 +60,8 @@ class RigDouble:
     def status(self) -> dict:
         self.status_calls += 1
         return {
-            "state": "IDLE",
-            "allowed": ["arm", "home"],
-            "x_m": 0.0,
+            **self._supervisor.status(),
             "status_calls": self.status_calls,
-            "link": {"connected": True, "rate_hz": 500.0},
-            "interlocks": [{"name": "track", "state": "armed", "margin": 0.2, "unit": "m"}],
             "padding": self.padding,
         }
 

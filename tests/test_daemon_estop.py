@@ -5,32 +5,27 @@ from __future__ import annotations
 import os
 import signal
 
-from test_daemon_support import device_received, homed_and_ready, run_for, running_service, wait_for
+import pytest
+from test_daemon_support import (
+    balancing,
+    device_received,
+    frames_from_last_stop,
+    run_for,
+    running_service,
+    wait_for,
+)
 
 from daemon.api.client import ApiClient
-from daemon.runtime.session import swing_up_when_still
+from daemon.runtime.embedded_sim import RIG_LINKS
 from daemon.supervisor import Output, State
 from protocol import Drive, Stop
 
 CATEGORY_0 = "[stop]\ncategory = 0\n"
 
 
-async def balancing(service) -> None:
-    await homed_and_ready(service)
-    await swing_up_when_still(service)
-    assert await wait_for(service, State.BALANCE, State.FAULT, State.IDLE) is State.BALANCE
-    await run_for(service, 0.5)
-
-
-def frames_from_last_stop(service) -> tuple[list, list]:
-    """(frames before the last Stop the device received, frames from that Stop on)."""
-    frames = device_received(service)
-    at = max(i for i, m in enumerate(frames) if type(m) is Stop)
-    return frames[:at], frames[at:]
-
-
-async def test_estop_through_the_api_during_balance_makes_the_next_command_frame_a_stop(tmp_path):
-    async with running_service(tmp_path, extra=CATEGORY_0, serve_api=True) as service:
+@pytest.mark.parametrize("link", RIG_LINKS)
+async def test_estop_through_the_api_during_balance_makes_the_next_command_frame_a_stop(tmp_path, link):
+    async with running_service(tmp_path, extra=CATEGORY_0, serve_api=True, link=link) as service:
         await balancing(service)
         async with await ApiClient.connect(service.config.api.socket_path) as client:
             result = await client.request("estop")

@@ -18,8 +18,9 @@ from daemon.config import parse_config
 from daemon.errors import CommandRefused
 from daemon.recording.schema import SAMPLE_COLUMN_NAMES
 from daemon.recording.store import get_run, open_for_reading, run_events, sample_chunks
-from daemon.runtime.embedded_sim import SimOptions
+from daemon.runtime.embedded_sim import RigLink, SimOptions
 from daemon.runtime.service import PoiseService
+from daemon.runtime.session import swing_up_when_still
 from daemon.supervisor import Output, State
 from protocol import Drive, FrameDecoder, Message, Stop
 from sim_device.faults import FaultPlan
@@ -30,11 +31,13 @@ WREN = REPO / "configs" / "wren-2.toml"
 
 
 def rig_config_text(
-    tmp_path: Path, base: Path = KESTREL, extra: str = "", edits: dict[str, str] | None = None
+    tmp_path: Path, base: Path = KESTREL, extra: str = "", edits: dict[str, str] | None = None,
+    api: str = "",
 ) -> str:
     """``base`` with its run store and control socket moved into ``tmp_path``, plus ``extra`` sections.
 
-    ``edits`` maps a key to its new value text, for keys already in ``base`` (``"device_watchdog_ms"``).
+    ``edits`` maps a key to its new value text, for keys already in ``base`` (``"device_watchdog_ms"``);
+    ``api`` is more lines for the ``[api]`` section.
     """
     lines = []
     for line in base.read_text().splitlines():
@@ -44,7 +47,7 @@ def rig_config_text(
         elif line.startswith("db_path"):
             line = f'db_path = "{tmp_path / "runs.db"}"'
         elif line == "[api]":
-            line += f'\nsocket_path = "{tmp_path / "poise.sock"}"'
+            line += f'\nsocket_path = "{tmp_path / "poise.sock"}"\n{api}'.rstrip()
         lines.append(line)
     return "\n".join(lines) + "\n" + extra
 
@@ -61,7 +64,8 @@ def write_rig_config(
 async def running_service(
     tmp_path: Path, *, base: Path = KESTREL, extra: str = "", faults: FaultPlan | None = None,
     serve_api: bool = False, lockstep: bool = True, edits: dict[str, str] | None = None,
-    supply_v: float | None = None, encoder_noise_counts: float = 0.0, power_up_reset: bool = True,
+    supply_v: float | None = None, encoder_noise_counts: float = 0.0, link: RigLink = "pty",
+    api: str = "", power_up_reset: bool = True,
 ) -> AsyncIterator[PoiseService]:
     """The daemon on the built-in simulated rig; ``supply_v`` fits the rig a supply measurement.
 
@@ -72,10 +76,10 @@ async def running_service(
     The rig's encoders have no noise beyond quantisation unless ``encoder_noise_counts`` is given,
     so a test's figures do not depend on a seed.
     """
-    text = rig_config_text(tmp_path, base, extra, edits)
+    text = rig_config_text(tmp_path, base, extra, edits, api)
     options = SimOptions(
         lockstep=lockstep, faults=faults or FaultPlan(), supply_v=supply_v,
-        encoder_noise_counts=encoder_noise_counts,
+        encoder_noise_counts=encoder_noise_counts, link=link,
     )
     service = PoiseService(parse_config(text), text, sim=options, serve_api=serve_api)
     await service.start()
@@ -117,6 +121,21 @@ async def execute_when_still(service: PoiseService, command: str, args: dict, wi
             if "pendulum.hanging_still" not in refused.reason or service.cycle.t_s > deadline_s:
                 raise
         await run_for(service, 0.1)
+
+
+async def balancing(service: PoiseService) -> None:
+    """Home, arm, swing up, and balance for half a second of rig time."""
+    await homed_and_ready(service)
+    await swing_up_when_still(service)
+    assert await wait_for(service, State.BALANCE, State.FAULT, State.IDLE) is State.BALANCE
+    await run_for(service, 0.5)
+
+
+def frames_from_last_stop(service: PoiseService) -> tuple[list, list]:
+    """(frames before the last Stop the device received, frames from that Stop on)."""
+    frames = device_received(service)
+    at = max(i for i, m in enumerate(frames) if type(m) is Stop)
+    return frames[:at], frames[at:]
 
 
 def recorded_samples(service: PoiseService) -> list[dict]:

@@ -149,3 +149,19 @@ def test_a_missing_config_file_is_a_one_line_error(tmp_path, capsys):
     assert main(["design", "--config", str(tmp_path / "nope.toml")]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "cannot read file" in err[0]
+
+
+def test_without_a_config_it_designs_for_the_demo_rig(capsys):
+    assert main(["design", "--json"]) == 0
+    demo = strict_json(capsys.readouterr().out)
+    assert main(["design", "--json", "--config", str(KESTREL)]) == 0
+    assert demo == strict_json(capsys.readouterr().out)
+    assert demo["sample_rate_hz"] == load_config(KESTREL).sampling.rate_hz
+
+
+def test_write_without_a_config_is_refused_and_the_shipped_demo_config_is_untouched(capsys):
+    before = KESTREL.read_bytes()
+    assert main(["design", "--write"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert err == ["poise: design: --write needs --config FILE (the demo rig's config ships with Poise)"]
+    assert KESTREL.read_bytes() == before

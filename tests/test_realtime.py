@@ -113,6 +113,7 @@ def test_the_readme_demo_homes_swings_up_and_balances_with_the_dashboard_attache
         terminal.keys("y")
         wait_state("HOMING", limit_s=10.0)
         assert wait_state("IDLE")["homed"] is True
+        terminal.wait_for("next    a  arm")  # the dashboard's own view has caught up, as an operator's would
         confirm("a")
         wait_state("READY", limit_s=10.0)
         deadline = time.monotonic() + 60.0

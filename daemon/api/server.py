@@ -34,8 +34,9 @@ Policies a client can rely on:
   client cannot hold the event loop the control cycle runs on;
 - beyond ``api.max_clients`` connections a new connection may still send one
   ``estop`` (within ``ESTOP_LANE_READ_S``), which is carried out; anything
-  else gets the "too many clients" error. So an e-stop gets through whatever
-  other clients hold.
+  else gets the "too many clients" error. At most ``api.max_clients`` such
+  connections wait at once, and a new one cuts off the one waiting longest. So
+  an e-stop gets through whatever other clients hold.
 """
 
 from __future__ import annotations
@@ -120,6 +121,7 @@ class ApiStats:
     status_failures: int = 0
     stalled_clients_disconnected: int = 0
     estops_beyond_the_limit: int = 0
+    estop_lane_cut_off: int = 0
     rate_limit_waits: int = 0
 
 
@@ -218,7 +220,7 @@ class ApiServer:
         self._last_status_error = ""
         self._status_json: bytes | None = None
         self._status_built_at = -math.inf
-        self._over_limit_clients = 0
+        self._estop_lane: deque[asyncio.StreamWriter] = deque()  # connections beyond the limit
         self._stats = ApiStats()
 
     @property
@@ -263,6 +265,8 @@ class ApiServer:
         self._reschedule()
         for client in list(self._clients):
             client.abort()
+        for waiting in list(self._estop_lane):
+            waiting.transport.abort()
         await self._server.wait_closed()
         await self.wait_for_clients(0)
         self._server = None
@@ -272,16 +276,20 @@ class ApiServer:
         except FileNotFoundError:
             pass
 
-    async def wait_for_clients(self, count: int) -> None:
-        """Return once exactly ``count`` clients are connected."""
+    async def wait_for_clients(self, count: int, *, in_estop_lane: int = 0) -> None:
+        """Return once exactly ``count`` clients are connected and ``in_estop_lane`` connections
+        beyond the limit wait to send an e-stop."""
         async with self._clients_changed:
-            await self._clients_changed.wait_for(lambda: len(self._clients) == count)
+            await self._clients_changed.wait_for(
+                lambda: len(self._clients) == count and len(self._estop_lane) == in_estop_lane
+            )
 
     def stats(self) -> dict:
         """Counters since start, plus the number of clients and subscribers now."""
         return {
             **asdict(self._stats),
             "clients": len(self._clients),
+            "estop_lane": len(self._estop_lane),
             "subscribers": len(self._subscribers),
         }
 
@@ -316,31 +324,39 @@ class ApiServer:
         """A connection beyond ``api.max_clients``: it may send one e-stop, and nothing else.
 
         So however many connections other clients hold, ``poise estop`` gets through. At most
-        ``max_clients`` such connections wait at once; beyond that they are turned away at once.
+        ``max_clients`` such connections wait at once: a new one cuts off the one that has
+        waited longest (an e-stop client sends its line as soon as it connects, so whoever
+        is still silent has had its turn), so connections that never send cannot fill the lane.
         """
         self._stats.clients_turned_away += 1
         limit = self._settings.max_clients
         message = f"too many clients (at most {limit}; beyond that only {ESTOP_COMMAND} is served); try again later"
         reply = error_reply(None, BAD_REQUEST, message)
-        if self._over_limit_clients < limit:
-            self._over_limit_clients += 1
-            try:
-                async with asyncio.timeout(ESTOP_LANE_READ_S):
-                    line = await reader.readuntil(b"\n")
-                request = parse_request(line)
-                if request.cmd == ESTOP_COMMAND:
-                    self._stats.estops_beyond_the_limit += 1
-                    reply = self._execute(request)
-                else:
-                    reply = error_reply(request.id, BAD_REQUEST, message)
-            except RequestError as exc:
-                reply = error_reply(exc.request_id, BAD_REQUEST, message)
-            except (TimeoutError, ConnectionError, asyncio.IncompleteReadError, asyncio.LimitOverrunError):
-                pass
-            finally:
-                self._over_limit_clients -= 1
-        with contextlib.suppress(ConnectionError):
-            writer.write(encode_line(reply))
+        if len(self._estop_lane) >= limit:
+            self._stats.estop_lane_cut_off += 1
+            self._estop_lane.popleft().transport.abort()
+        self._estop_lane.append(writer)
+        await self._clients_have_changed()
+        try:
+            async with asyncio.timeout(ESTOP_LANE_READ_S):
+                line = await reader.readuntil(b"\n")
+            request = parse_request(line)
+            if request.cmd == ESTOP_COMMAND:
+                self._stats.estops_beyond_the_limit += 1
+                reply = self._execute(request)
+            else:
+                reply = error_reply(request.id, BAD_REQUEST, message)
+        except RequestError as exc:
+            reply = error_reply(exc.request_id, BAD_REQUEST, message)
+        except (TimeoutError, ConnectionError, asyncio.IncompleteReadError, asyncio.LimitOverrunError):
+            pass
+        finally:
+            with contextlib.suppress(ValueError):  # not there when it was cut off
+                self._estop_lane.remove(writer)
+            await self._clients_have_changed()
+        if writer.transport.is_closing():
+            return
+        writer.write(encode_line(reply))
         writer.close()
 
     async def _read_loop(self, reader: asyncio.StreamReader, client: _Client) -> None:
@@ -413,6 +429,10 @@ class ApiServer:
                 await client.wakeup.wait()
         except ConnectionError:
             client.abort()
+
+    async def _clients_have_changed(self) -> None:
+        async with self._clients_changed:
+            self._clients_changed.notify_all()
 
     async def _add_client(self, client: _Client) -> None:
         async with self._clients_changed:

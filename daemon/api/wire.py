@@ -17,7 +17,7 @@ from __future__ import annotations
 import json
 from dataclasses import dataclass
 
-from daemon.api.commands import BadRequest, validate_args
+from daemon.operator_commands import BadRequest, validate_args
 from daemon.strict_json import finite_or_null
 
 CLIENT_SOURCES = ("api", "cli", "dashboard")
@@ -50,9 +50,14 @@ class RequestError(BadRequest):
 def parse_request(line: bytes) -> Request:
     """Decode and check one request line (without caring about its trailing newline)."""
     try:
-        data = json.loads(line)
-    except UnicodeDecodeError:
-        raise RequestError("request is not UTF-8 text", None) from None
+        # UTF-8 only (IETF RFC 8259, section 8.1): json.loads would guess UTF-16 or -32 from bytes.
+        text = line.decode()
+    except UnicodeDecodeError as exc:
+        raise RequestError(
+            f"request is not UTF-8 text (byte {exc.start} is 0x{line[exc.start]:02x})", None
+        ) from None
+    try:
+        data = json.loads(text)
     except json.JSONDecodeError as exc:
         raise RequestError(
             f"request is not valid JSON ({exc.msg} at column {exc.colno})", None

@@ -10,10 +10,12 @@ from __future__ import annotations
 
 import argparse
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 from daemon.commands import add_config_argument, config_path
 from daemon.control.excitation import EXCITE_KINDS
+from daemon.operator_commands import COMMANDS as OPERATOR_COMMANDS
+from daemon.operator_commands import CommandSpec
 
 # asyncio, json, rich and the API client are imported inside run() (see daemon/cli.py).
 
@@ -21,31 +23,21 @@ DEFAULT_TIMEOUT_S = 5.0
 TINY = 1e-9
 
 
-def _no_arguments(parser: argparse.ArgumentParser) -> None:
-    del parser
-
-
-def _no_api_args(args: argparse.Namespace) -> dict:
-    del args
-    return {}
-
-
 def _add_setpoint(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument(
-        "x_m", type=float, metavar="X_M", help="cart set-point, metres from the track centre"
-    )
+    spec = OPERATOR_COMMANDS["setpoint"]
+    parser.add_argument("x_m", type=float, metavar="X_M", help=spec.argument_help["x_m"])
+
+
+def _setpoint_args(args: argparse.Namespace) -> dict:
+    return {"x_m": args.x_m}
 
 
 def _add_excite(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("--kind", required=True, choices=EXCITE_KINDS, help="excitation signal")
+    arg_help = OPERATOR_COMMANDS["excite"].argument_help
+    parser.add_argument("--kind", required=True, choices=EXCITE_KINDS, help=arg_help["kind"])
+    parser.add_argument("--amplitude", type=float, help=arg_help["amplitude"])
     parser.add_argument(
-        "--amplitude",
-        type=float,
-        help="drive amplitude, volts or newtons as the rig's drive (default: sized for the rig, so "
-        "the run keeps the cart well inside the soft limits; a larger one than the rig allows is refused)",
-    )
-    parser.add_argument(
-        "--duration", required=True, type=float, metavar="S", help="length of the run in seconds"
+        "--duration", required=True, type=float, metavar="S", help=arg_help["duration_s"]
     )
 
 
@@ -57,8 +49,9 @@ def _excite_args(args: argparse.Namespace) -> dict:
 
 
 def _add_record(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("switch", choices=("on", "off"), help="start or stop recording")
-    parser.add_argument("--note", help="a note stored with the run")
+    arg_help = OPERATOR_COMMANDS["record"].argument_help
+    parser.add_argument("switch", choices=("on", "off"), help=arg_help["on"])
+    parser.add_argument("--note", help=arg_help["note"])
 
 
 def _record_args(args: argparse.Namespace) -> dict:
@@ -68,18 +61,34 @@ def _record_args(args: argparse.Namespace) -> dict:
     return api_args
 
 
+#: How a verb's own command-line arguments are declared and turned into the API's arguments,
+#: for the commands that take any.
+_ARGUMENTS: dict[
+    str, tuple[Callable[[argparse.ArgumentParser], None], Callable[[argparse.Namespace], dict]]
+] = {
+    "setpoint": (_add_setpoint, _setpoint_args),
+    "excite": (_add_excite, _excite_args),
+    "record": (_add_record, _record_args),
+}
+
+
 @dataclass(frozen=True)
 class Verb:
-    """One CLI verb and the API command it sends."""
+    """One CLI verb: the API command it sends (name, help and arguments from its spec)."""
 
-    name: str
-    command: str
-    help: str
-    add_own_arguments: Callable[[argparse.ArgumentParser], None] = _no_arguments
-    api_args: Callable[[argparse.Namespace], dict] = field(default=_no_api_args)
+    spec: CommandSpec
+
+    @property
+    def name(self) -> str:
+        return self.spec.verb
+
+    @property
+    def command(self) -> str:
+        return self.spec.name
 
     def add_arguments(self, parser: argparse.ArgumentParser) -> None:
-        self.add_own_arguments(parser)
+        if self.command in _ARGUMENTS:
+            _ARGUMENTS[self.command][0](parser)
         parser.add_argument(
             "--socket",
             metavar="PATH",
@@ -94,6 +103,9 @@ class Verb:
             metavar="S",
             help=f"give up waiting for the daemon after S seconds (default {DEFAULT_TIMEOUT_S:g})",
         )
+
+    def api_args(self, args: argparse.Namespace) -> dict:
+        return _ARGUMENTS[self.command][1](args) if self.command in _ARGUMENTS else {}
 
     def run(self, args: argparse.Namespace) -> int:
         result = _send(
@@ -111,34 +123,9 @@ class Verb:
         return 0
 
 
-VERBS = (
-    Verb("arm", "arm", "arm the drive (after the pre-arm checks)"),
-    Verb("disarm", "disarm", "disarm the drive"),
-    Verb("home", "home", "find the track ends and centre the cart"),
-    Verb("swing-up", "swing_up", "swing the pendulum up and balance it"),
-    Verb("balance", "balance", "catch and balance a pendulum held near upright"),
-    Verb(
-        "setpoint",
-        "setpoint",
-        "move the cart set-point",
-        _add_setpoint,
-        lambda args: {"x_m": args.x_m},
-    ),
-    Verb("stop", "stop", "controlled stop"),
-    Verb("estop", "estop", "emergency stop (latched until reset)"),
-    Verb("reset", "reset", "clear a latched fault or e-stop (never starts motion)"),
-    Verb(
-        "excite",
-        "excite",
-        "run an identification excitation",
-        _add_excite,
-        _excite_args,
-    ),
-    Verb("record", "record", "start or stop recording", _add_record, _record_args),
-    Verb("status", "status", "show the daemon's status (a table, or --json)"),
-)
+VERBS = tuple(Verb(spec) for spec in OPERATOR_COMMANDS.values() if spec.has_verb)
 
-COMMANDS = [(verb.name, verb.help, verb.add_arguments, verb.run) for verb in VERBS]
+COMMANDS = [(verb.name, verb.spec.summary, verb.add_arguments, verb.run) for verb in VERBS]
 
 
 def _socket_path(args: argparse.Namespace) -> str:

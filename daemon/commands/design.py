@@ -12,14 +12,15 @@ import argparse
 import json
 import math
 import re
-from pathlib import Path
+
+from daemon.commands import add_config_argument, config_path
 
 NAME = "design"
 HELP = "design the balance LQR for a rig config and predict how it behaves (--write saves the gains)"
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("--config", required=True, metavar="FILE", help="rig config TOML")
+    add_config_argument(parser)
     parser.add_argument("--json", action="store_true", help="print JSON instead of a table")
     parser.add_argument("--write", action="store_true", help="write the gains into the config's [balance] gains")
     parser.add_argument("--step-m", type=float, default=None, metavar="M",
@@ -129,7 +130,9 @@ def run(args: argparse.Namespace) -> int:
     from daemon.control.design_report import design_report
     from daemon.errors import OperatorError
 
-    path = Path(args.config)
+    if args.write and not args.config:
+        raise OperatorError("design: --write needs --config FILE (the demo rig's config ships with Poise)")
+    path = config_path(args)
     config = load_config(path)
     try:
         report = design_report(config, args.step_m)

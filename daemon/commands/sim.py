@@ -65,6 +65,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="the motor driver reports a fault at S (repeatable)")
     faults.add_argument("--cart-encoder-dead-at", metavar="S",
                         help="the cart encoder stops counting at S (unplugged, or its belt slipped)")
+    faults.add_argument("--pendulum-encoder-dead-at", metavar="S",
+                        help="the pendulum encoder stops counting at S (unplugged, or its coupling slipped)")
     faults.add_argument("--supply-sag", action="append", default=[], metavar="AT_S:V",
                         help="the measured supply voltage drops to V at AT_S (needs --supply-v; repeatable)")
     faults.add_argument("--impulse", action="append", default=[], metavar="AT_S:NS",
@@ -119,6 +121,7 @@ def fault_plan(args: argparse.Namespace) -> FaultPlan:
         EncoderGlitch,
         FaultPlan,
         Impulse,
+        PendulumEncoderDead,
         Reset,
         Stall,
         StuckSwitch,
@@ -141,6 +144,9 @@ def fault_plan(args: argparse.Namespace) -> FaultPlan:
         events.append((_time("--driver-fault-at", text), DriverFault()))
     if args.cart_encoder_dead_at is not None:
         events.append((_time("--cart-encoder-dead-at", args.cart_encoder_dead_at), CartEncoderDead()))
+    if args.pendulum_encoder_dead_at is not None:
+        at_s = _time("--pendulum-encoder-dead-at", args.pendulum_encoder_dead_at)
+        events.append((at_s, PendulumEncoderDead()))
     for text in args.supply_sag:
         parts = _pair("--supply-sag", text, "AT_S:V")
         if len(parts) != 2:

@@ -84,8 +84,13 @@ def resolve_derived(config: PoiseConfig) -> tuple[PoiseConfig, list[str]]:
         f"the swing-up travel limit ±{travel_m:.3f} m, which is swing_up.track_use_fraction "
         f"{config.swing_up.track_use_fraction:g} of the soft limit ±{config.soft_limit_m:.3f} m"
     )
-    if swing_up.pump_offset_m is None:
-        offset_m = round(PUMP_OFFSET_SHARE * travel_m, 4)
+    offset_m = round(PUMP_OFFSET_SHARE * travel_m, 4)
+    if swing_up.pump_offset_m is None and offset_m <= 0.0:  # the field's range is > 0
+        problems.append(
+            f"swing_up.pump_offset_m: {PUMP_OFFSET_SHARE:g} of {travel} rounds to 0 m: "
+            "no room to pump (raise swing_up.track_use_fraction)"
+        )
+    elif swing_up.pump_offset_m is None:
         swing_up = swing_up.model_copy(update={"pump_offset_m": offset_m})
         source = f"from the track: {PUMP_OFFSET_SHARE:g} of {travel}"
         derived.append(DerivedValue("swing_up.pump_offset_m", offset_m, "m", source))

@@ -55,6 +55,14 @@ class InterlockSettings(Section):
     stall_time_s: float = Field(
         default=0.5, gt=0.0, le=60.0, description="plausibility: ...for longer"
     )
+    # Encoders: the glitch check allows each reading this much beyond its rounding to a count
+    # (daemon/supervisor/encoder_checks.py derives the bounds from the plant).
+    encoder_flicker_counts: float = Field(
+        default=2.0,
+        ge=0.0,
+        le=1000.0,
+        description="counts a reading may be off beyond quantisation (edge jitter, noise)",
+    )
     supply_min_v: float | None = Field(
         default=None, ge=0.0, le=1000.0, description="unset: not checked"
     )

@@ -12,7 +12,13 @@ left by homing dies away in a few seconds instead of minutes.
 :class:`CartVelocityFollower` is ``a = (v_sp - v) / tau``, saturated; the stop
 ramp hands it a velocity set-point falling to zero. Its ``tau`` and saturation
 are the stop's (daemon/supervisor/stop_ramp.py), since the stopping-distance
-interlock counts the lag ``tau`` gives.
+interlock counts the lag ``tau`` gives. Being the stop's loop, it never has the
+drive push the cart along its motion: where friction and back-EMF brake the
+cart harder than the loop asks, the drive lets them rather than cancel them. A
+command along the motion is held below the dead band plus the back-EMF's
+voltage, ``damping / gain * |v|``, at which the drive's force is zero; ``|v|``
+is taken one sample's loop deceleration lower, since the measured velocity (a
+difference over the last period) runs ahead of the braking cart's.
 """
 
 from __future__ import annotations
@@ -20,7 +26,7 @@ from __future__ import annotations
 import math
 
 from daemon.control.drive_model import AccelerationDrive, clamp
-from sim_device.plant import PlantParams
+from sim_device.plant import PlantParams, drive_gains
 
 __all__ = ["CartHold", "CartVelocityFollower"]
 
@@ -65,13 +71,21 @@ class CartHold:
 class CartVelocityFollower:
     """Follow a cart velocity set-point: ``update(v_sp, x, v, th, w) -> drive``."""
 
-    __slots__ = ("_a_max", "_drive", "_inv_tau")
+    __slots__ = ("_a_max", "_band", "_drive", "_emf_per_mps", "_inv_tau", "_lead_mps")
 
-    def __init__(self, params: PlantParams, max_accel_mps2: float, time_constant_s: float):
+    def __init__(self, params: PlantParams, max_accel_mps2: float, time_constant_s: float,
+                 period_s: float):
         self._a_max = max_accel_mps2
         self._inv_tau = 1.0 / time_constant_s
         self._drive = AccelerationDrive(params)
+        gain, damping = drive_gains(params.drive)
+        self._band = params.drive.dead_band
+        self._emf_per_mps = damping / gain  # command per m/s at which the drive's force is zero
+        self._lead_mps = max_accel_mps2 * period_s  # how far the measured speed may run ahead
 
     def update(self, v_setpoint: float, x: float, v: float, theta: float, omega: float) -> float:
         a = clamp((v_setpoint - v) * self._inv_tau, self._a_max)
-        return self._drive.command_for(a, v, math.sin(theta), math.cos(theta), omega)
+        u = self._drive.command_for(a, v, math.sin(theta), math.cos(theta), omega)
+        if u * v > 0.0:  # along the motion: never a force along it
+            return clamp(u, self._band + self._emf_per_mps * max(0.0, abs(v) - self._lead_mps))
+        return u

@@ -13,7 +13,8 @@ awaits and no queue hops, a straight line::
   mode event, the stop ramp. If the decision carries a transition, the one
   transition handler (:meth:`apply`) acts on it before the output is worked out.
 - *output*: the decision's output: the controller of its state, the cart
-  velocity loop on the stop ramp's set-point, or zero.
+  velocity loop on the stop ramp's set-point (following the raw cart velocity,
+  as the interlocks judge it), or zero.
 - *record*: the sample row to the recorder's queue (``put_sample``, never
   blocks); then the overrun interlock, whose trip acts from the next sample on
   (this sample's command has gone). The link-error interlock (sequence gaps,
@@ -169,7 +170,8 @@ class ControlCycle:
         self.modes = ModeWatch(controls.window, homing)
         self.hold = CartHold(controls.params)
         self.follower = CartVelocityFollower(
-            controls.params, FOLLOWER_ACCEL_FACTOR * config.stop.decel_mps2, FOLLOWER_TIME_CONSTANT_S
+            controls.params, FOLLOWER_ACCEL_FACTOR * config.stop.decel_mps2, FOLLOWER_TIME_CONSTANT_S,
+            1.0 / config.sampling.rate_hz,
         )
         self.monitor = LinkErrorMonitor(config)
         self.put_sample = put_sample
@@ -337,7 +339,7 @@ class ControlCycle:
             else:
                 drive = self._control(state, setpoint_m, t_s, x, v, th, w)
         elif output is _RAMP:
-            drive = self.follower.update(ramp_v, x, v, th, w)
+            drive = self.follower.update(ramp_v, x, estimator.raw_v_mps, th, w)
         else:
             drive = 0.0
         t3 = _clock_ns() if staged else 0

@@ -33,6 +33,7 @@ import math
 import signal
 import sys
 import time
+from collections.abc import Callable
 from dataclasses import replace
 from pathlib import Path
 
@@ -104,6 +105,8 @@ class PoiseService:
         self.serve_api = serve_api
         self.socket_path = Path(socket_path) if socket_path else control_socket_path(config)
         self.rig: SimulatedRig | None = None
+        # how to (re)open the rig's port: the URL given, or the built-in rig's link once started
+        self._open_port: Callable[[], Port] = lambda: open_port(port_url or "")
         self.port: Port | None = None
         self.link: Link | None = None
         self.hello: DeviceHello | None = None
@@ -144,10 +147,10 @@ class PoiseService:
         self._loop = loop = asyncio.get_running_loop()
         self._shutdown_requested = asyncio.Event()
         self.rate_known = asyncio.Event()
-        url = self.port_url
         if self.sim_options is not None:
-            self.rig = start_embedded_rig(self.config, self.sim_options, loop)
-            url = self.rig.where
+            embedded = start_embedded_rig(self.config, self.sim_options, loop)
+            self.rig, self._open_port = embedded.rig, embedded.open_port
+        url = self.rig.where if self.rig is not None else self.port_url
         try:
             self.recorder = Recorder.from_settings(
                 self.config.recording, on_error=self._recording_failed_threadsafe
@@ -162,7 +165,7 @@ class PoiseService:
         gc.freeze()
         self._tasks.append(asyncio.create_task(self._housekeeping(), name="poise-housekeeping"))
         try:
-            await self._connect(url)
+            await self._connect()
         except (LinkDown, OperatorError) as exc:
             await self._release()
             raise OperatorError(str(exc)) from None
@@ -195,9 +198,9 @@ class PoiseService:
         sys.setswitchinterval(GIL_SWITCH_INTERVAL_S)
         log.info("serving rig %s on %s", self.config.rig.id, url)
 
-    async def _connect(self, url: str) -> None:
+    async def _connect(self) -> None:
         loop = asyncio.get_running_loop()
-        port = open_port(url)
+        port = self._open_port()
         link = Link(
             port.fd,
             self.config.sampling.device_watchdog_ms,
@@ -602,7 +605,7 @@ class PoiseService:
         while not self.closing:
             await asyncio.sleep(RECONNECT_INTERVAL_S)
             try:
-                await self._connect(url)
+                await self._connect()
             except (LinkDown, OperatorError) as exc:
                 log.info("rig port %s not back yet: %s", url, exc)
                 continue

@@ -1,5 +1,6 @@
 """The supervisor: state machine, interlocks, pre-arm checks and stops of one rig (no I/O)."""
 
+from daemon.operator_commands import Command
 from daemon.supervisor.decision import Decision, Output, Transition
 from daemon.supervisor.interlocks import (
     Action,
@@ -13,7 +14,7 @@ from daemon.supervisor.interlocks import (
 )
 from daemon.supervisor.machine import Fault, LogEntry, StateMachine
 from daemon.supervisor.prechecks import CheckFailure, Health, prearm_failures
-from daemon.supervisor.states import TRANSITIONS, Command, Event, State, state_code_table
+from daemon.supervisor.states import TRANSITIONS, Event, State, state_code_table
 from daemon.supervisor.stop_ramp import StopRamp
 from daemon.supervisor.supervisor import CHECKS_BY_STATE, Supervisor
 

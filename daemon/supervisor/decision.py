@@ -54,8 +54,8 @@ class Transition:
 class Decision(NamedTuple):
     """This sample's answer: the output, the state whose controller runs, the set-points.
 
-    ``ramp_velocity_mps`` is the stop ramp's cart velocity set-point when ``output`` is RAMP
-    (0 otherwise); ``trip`` is a trip newly latched this sample (to record); ``transition``
+    ``ramp_velocity_mps`` is the stop ramp's set-point for the cart velocity loop when ``output``
+    is RAMP (:meth:`~daemon.supervisor.stop_ramp.StopRamp.follower_setpoint`; 0 otherwise); ``trip`` is a trip newly latched this sample (to record); ``transition``
     is the change this sample made, if any. A named tuple, so the cycle unpacks it in one step.
     """
 

@@ -41,6 +41,16 @@ FAULT_HINTS: dict[str, str] = {
     "gives (check drive.limit and the gains)",
     "drive.plausibility": "drive applied but the cart did not move: a stuck cart, a slipping "
     "belt, a motor not powered, or a dead cart encoder",
+    "encoder.cart_glitch": "the cart's reading jumped further in one sample than the drive can move "
+    "it: electrical noise on the encoder lines (screen them, route them away from the motor leads), "
+    "a loose connector, or a counter that missed edges; re-home after reset",
+    "encoder.pendulum_glitch": "the pendulum's reading jumped further in one sample than the "
+    "pendulum can turn: noise on the encoder lines, a loose connector or a slipping shaft coupling; "
+    "check the hanging angle reads 180 deg before swinging up again",
+    "encoder.cart_dead": "the cart's reading stayed put while the drive must have moved the cart at "
+    "least 1 mm: cart encoder unplugged, its belt or pulley slipping, or the cart jammed",
+    "encoder.pendulum_dead": "the pendulum's reading stayed put while the cart's motion must have "
+    "swung it: pendulum encoder unplugged or its shaft coupling slipping",
     "drive.supply": "the motor supply is outside its range: check the power supply and its "
     "cabling",
     "device.watchdog": "the rig cut its motor because commands stopped: the daemon was killed "

@@ -59,6 +59,7 @@ class Checks(IntFlag):
     SWITCHES = 2  # limit switches (homing runs onto them on purpose)
     MOTION = 4  # cart speed, saturation, stall plausibility
     PENDULUM_RATE = 8  # everywhere but swing-up
+    ENCODERS = 16  # encoder glitches and dead encoders (daemon/supervisor/encoder_checks.py)
 
 
 @dataclass(frozen=True, slots=True)

@@ -12,16 +12,12 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
 from daemon.control.encoders import wrap_angle
+from daemon.operator_commands import MOTION_COMMANDS, Command
 from daemon.supervisor.interlocks import Checks, InterlockLimits, flag_trips, supply_trip
-from daemon.supervisor.states import Command
 
 if TYPE_CHECKING:
     from daemon.config import PoiseConfig
 
-#: Commands that start motion, and so run the pre-arm checks.
-MOTION_COMMANDS = frozenset(
-    {Command.HOME, Command.ARM, Command.SWING_UP, Command.BALANCE, Command.EXCITE}
-)
 _NEEDS_HOMED = MOTION_COMMANDS - {Command.HOME}
 _NEEDS_HANGING = frozenset({Command.SWING_UP, Command.EXCITE})
 

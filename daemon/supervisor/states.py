@@ -12,6 +12,8 @@ from __future__ import annotations
 
 from enum import Enum, IntEnum
 
+from daemon.operator_commands import Command
+
 
 class State(IntEnum):
     DISCONNECTED = 0
@@ -24,21 +26,6 @@ class State(IntEnum):
     EXCITE = 7  # identification run
     FAULT = 8  # latched until an operator reset
     ESTOP = 9  # latched until an operator reset
-
-
-class Command(str, Enum):
-    """Operator commands; the values are the names used on the control API and CLI."""
-
-    ARM = "arm"
-    DISARM = "disarm"
-    HOME = "home"
-    SWING_UP = "swing_up"
-    BALANCE = "balance"
-    SETPOINT = "setpoint"
-    STOP = "stop"
-    ESTOP = "estop"
-    RESET = "reset"
-    EXCITE = "excite"
 
 
 class Event(str, Enum):

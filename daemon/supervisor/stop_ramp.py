@@ -8,9 +8,16 @@ ended, the stop is overdue and the drive must be switched off anyway.
 
 The velocity loop (:class:`daemon.control.cart_loops.CartVelocityFollower`,
 ``a = (v_sp - v) / tau``) is built from the two constants below. Following a
-ramp of deceleration ``a`` it lags the set-point by ``tau`` in time, so the cart
-stops ``v0 tau`` further than the ramp's ``v0^2 / (2a)``; the predictive
-stopping-distance interlock counts that lag (:func:`stop_lag_s`).
+ramp of deceleration ``a`` it would lag the set-point by ``tau`` in time, and on
+the ramp's first samples ask for almost no deceleration: the drive would then
+hold the cart's speed against friction and back-EMF, pushing it along its
+motion. So the loop is handed the ramp's set-point ``tau`` ahead
+(:meth:`StopRamp.follower_setpoint`): ``(v_sp(t + tau) - v) / tau`` is the
+ramp's own deceleration from the very first sample, and the drive brakes from
+the first command of the stop. The predictive stopping-distance interlock still
+counts the lag ``tau`` (:func:`stop_lag_s`), a margin the stop now keeps. The
+loop follows the raw cart velocity, the one the stop started from and judges
+its end by, never a model-based estimate that a pendulum glitch can pull.
 """
 
 from __future__ import annotations
@@ -51,6 +58,10 @@ class StopRamp:
         """The velocity set-point at ``t_s``: v0 reduced by a·t toward zero, never past it."""
         speed = abs(self.v0_mps) - self.decel_mps2 * max(0.0, t_s - self.t0_s)
         return math.copysign(speed, self.v0_mps) if speed > 0.0 else 0.0
+
+    def follower_setpoint(self, t_s: float) -> float:
+        """The set-point the velocity loop chases at ``t_s``: the ramp's, ``tau`` ahead (module docstring)."""
+        return self.velocity_setpoint(t_s + FOLLOWER_TIME_CONSTANT_S)
 
     def complete(self, t_s: float, v_mps: float) -> bool:
         """True once the ramp has ended and the cart is measured as stopped."""

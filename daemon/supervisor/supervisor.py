@@ -19,7 +19,9 @@ from collections.abc import Callable
 
 from daemon.config import PoiseConfig
 from daemon.errors import CommandRefused
+from daemon.operator_commands import MOTION_COMMANDS
 from daemon.supervisor.decision import Decision, Output, Transition
+from daemon.supervisor.encoder_checks import EncoderChecks
 from daemon.supervisor.fault_hints import fault_hint
 from daemon.supervisor.interlocks import (
     Action,
@@ -30,7 +32,7 @@ from daemon.supervisor.interlocks import (
     stopping_distance_m,
 )
 from daemon.supervisor.machine import LogEntry, StateMachine
-from daemon.supervisor.prechecks import MOTION_COMMANDS, Health, PrecheckLimits, prearm_failures
+from daemon.supervisor.prechecks import Health, PrecheckLimits, prearm_failures
 from daemon.supervisor.states import (
     COMMAND_NAMES,
     LATCHED_STATES,
@@ -41,15 +43,20 @@ from daemon.supervisor.states import (
 )
 from protocol.messages import SW_ESTOP_BUTTON
 
-_ALL_CHECKS = Checks.TRACK | Checks.SWITCHES | Checks.MOTION | Checks.PENDULUM_RATE
+_ALL_CHECKS = (
+    Checks.TRACK | Checks.SWITCHES | Checks.MOTION | Checks.PENDULUM_RATE | Checks.ENCODERS
+)
 
 #: Per-sample checks by state; the rig's e-stop and fault flags are checked in every state.
+#: A stop ramp (in STOPPING, or in FAULT or ESTOP after a category 1 trip) adds the limit
+#: switches and the encoders to its state's checks.
 CHECKS_BY_STATE: dict[State, Checks] = {
     State.DISCONNECTED: Checks.NONE,
     State.IDLE: Checks.NONE,
-    State.HOMING: Checks.MOTION | Checks.PENDULUM_RATE,  # position unknown; runs onto the switches
+    # position unknown; runs onto the switches
+    State.HOMING: Checks.MOTION | Checks.PENDULUM_RATE | Checks.ENCODERS,
     State.READY: _ALL_CHECKS,
-    State.SWING_UP: Checks.TRACK | Checks.SWITCHES | Checks.MOTION,
+    State.SWING_UP: Checks.TRACK | Checks.SWITCHES | Checks.MOTION | Checks.ENCODERS,
     State.BALANCE: _ALL_CHECKS,
     State.STOPPING: _ALL_CHECKS,
     State.EXCITE: _ALL_CHECKS,
@@ -60,7 +67,9 @@ CHECKS_BY_STATE: dict[State, Checks] = {
 # For the per-sample path: plain ints (IntFlag arithmetic is slow) and the enum member looked up
 # once (a member read through its class costs as much as a dozen float operations).
 _CHECK_MASKS = {state: int(mask) for state, mask in CHECKS_BY_STATE.items()}
-_SWITCHES = int(Checks.SWITCHES)
+_RAMP_CHECKS = int(Checks.SWITCHES | Checks.ENCODERS)
+_ENCODERS = int(Checks.ENCODERS)
+_DRIVE_OFF = Action.DRIVE_OFF
 _RAMP = Output.RAMP
 #: Entering these starts a new controller: the sustained-condition timers start afresh.
 _FRESH_TIMERS_STATES = frozenset({State.READY, State.SWING_UP, State.BALANCE, State.EXCITE})
@@ -80,6 +89,7 @@ class Supervisor:
         "config_problems",
         "device_watchdog_active",
         "drive",
+        "encoders",
         "faults",
         "interlocks",
         "limits",
@@ -107,6 +117,7 @@ class Supervisor:
         self.machine = StateMachine(config, on_entry)
         self.limits = InterlockLimits.from_config(config)
         self.interlocks = SampleInterlocks(self.limits)
+        self.encoders = EncoderChecks.from_config(config)
         self.precheck_limits = PrecheckLimits.from_config(config)
         self.link_rate_hz = 0.0
         self.device_watchdog_active = False
@@ -227,10 +238,16 @@ class Supervisor:
         before_state, before_output = m.state, m.output
         checks = _CHECK_MASKS[before_state]
         if before_output is _RAMP:
-            checks |= _SWITCHES
+            checks |= _RAMP_CHECKS
         found = self.interlocks.check(
             t_s, checks, x_m, v_mps, omega_radps, drive_applied, switches, faults, supply_v
         )
+        if checks & _ENCODERS:  # a lying encoder outranks what the other checks made of it
+            encoder_trip = self.encoders.check(t_s, v_mps, theta_rad, omega_radps, drive_applied)
+            if encoder_trip is not None and (found is None or found.action is not _DRIVE_OFF):
+                found = encoder_trip
+        else:
+            self.encoders.pause()
         if found is None and seen is None and m.ramp is None:  # the common sample: no change
             self._last_trip_name = None
             return self._steady
@@ -247,7 +264,7 @@ class Supervisor:
         if ramp is not None:
             self._follow_ramp(t_s, v_mps)
             ramp = m.ramp
-        ramp_v = 0.0 if ramp is None else ramp.velocity_setpoint(t_s)
+        ramp_v = 0.0 if ramp is None else ramp.follower_setpoint(t_s)
         if m.state is before_state and m.output is before_output and new_trip is None:
             if ramp is None:
                 return self._steady

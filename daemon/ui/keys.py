@@ -3,12 +3,15 @@
 The e-stop key is separate from the rest: it is bound with priority on the
 application, so it works on every screen (modals included) and in every state.
 The key bar, the state panel's "next" line and README's key table are all made
-from the tables here (``python -m daemon.ui.keys`` prints README's table).
+from the tables here, with each command's words and y/n question taken from the
+command table (:mod:`daemon.operator_commands`) (``python -m daemon.ui.keys`` prints README's table).
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
+
+from daemon.operator_commands import COMMANDS
 
 ESTOP_KEY = "space"
 ESTOP_KEY_LABEL = "SPACE"
@@ -18,12 +21,22 @@ SETPOINT_STEP_M = 0.02
 
 @dataclass(frozen=True)
 class OperatorKey:
+    """A key that sends one operator command; what it does comes from the command table."""
+
     key: str  # Textual key name
     label: str  # how the key is shown
     command: str  # control API command it sends
     title: str  # short words for the key bar
-    meaning: str  # what it does, for README's key table
-    confirm: str = ""  # what the command will do; set for commands that start motion
+
+    @property
+    def meaning(self) -> str:
+        """What it does, for README's key table."""
+        return COMMANDS[self.command].summary
+
+    @property
+    def confirm(self) -> str:
+        """What the command will do, asked y/n first; empty for commands that start no motion."""
+        return COMMANDS[self.command].motion
 
 
 @dataclass(frozen=True)
@@ -36,43 +49,13 @@ class OtherKey:
 
 
 OPERATOR_KEYS: tuple[OperatorKey, ...] = (
-    OperatorKey(
-        "a",
-        "a",
-        "arm",
-        "arm",
-        "power the drive and hold the cart at the centre (READY)",
-        "The drive is powered and holds the cart at its set-point.",
-    ),
-    OperatorKey("d", "d", "disarm", "disarm", "drive off (from READY)"),
-    OperatorKey(
-        "h",
-        "h",
-        "home",
-        "home",
-        "find the track ends and the centre (arming needs it)",
-        "The drive is powered: the cart runs to each track end, then to the centre.",
-    ),
-    OperatorKey(
-        "u",
-        "u",
-        "swing_up",
-        "swing",
-        "pump the pendulum up, then catch and balance it",
-        "The cart shuttles along the track to pump the pendulum up, then balances it.",
-    ),
-    OperatorKey(
-        "b",
-        "b",
-        "balance",
-        "balance",
-        "catch and balance a pendulum held near upright",
-        "The controller catches the pendulum where it is (held near upright) and balances it.",
-    ),
-    OperatorKey("s", "s", "stop", "stop", "controlled stop, then drive off (IDLE)"),
-    OperatorKey(
-        "c", "c", "reset", "reset", "clear a latched fault or e-stop; never starts motion"
-    ),
+    OperatorKey("a", "a", "arm", "arm"),
+    OperatorKey("d", "d", "disarm", "disarm"),
+    OperatorKey("h", "h", "home", "home"),
+    OperatorKey("u", "u", "swing_up", "swing"),
+    OperatorKey("b", "b", "balance", "balance"),
+    OperatorKey("s", "s", "stop", "stop"),
+    OperatorKey("c", "c", "reset", "reset"),
 )
 
 KEYS_BY_COMMAND = {key.command: key for key in OPERATOR_KEYS}
@@ -88,14 +71,14 @@ NUDGE = OtherKey(
     f"move the set-point {SETPOINT_STEP_M * 100:g} cm left or right (READY, BALANCE)",
 )
 CENTRE = OtherKey(CENTRE_KEY, "centre", "set-point back to the track centre")
-RECORD = OtherKey(RECORD_KEY, "rec", "start or end recording (the bar says \"end rec\" while on)")
+RECORD = OtherKey(RECORD_KEY, "rec", 'start or end recording (the bar says "end rec" while on)')
 QUIT = OtherKey(
     QUIT_KEY,
     "quit",
     "quit; a moving rig is stopped first (asked y/n, q again means yes); "
     "on any other question: cancel it, then quit",
 )
-ESTOP_MEANING = "emergency stop, on every screen and in every state; latched until reset"
+ESTOP_MEANING = f"{COMMANDS['estop'].summary}, on every screen"
 
 
 def suggested_key(status: dict) -> OperatorKey | None:
