@@ -10,7 +10,9 @@ until an operator reset (ISO 13850:2015, 5.5: resetting is a deliberate act
 and does not by itself start motion); after the reset motion is accepted. Each
 killed run must read ``aborted`` in `poise runs`, ending at its last stored
 sample. Lockstep keeps each restart cheap (a few seconds of rig time at many
-times real time); the same test runs in real time, marked ``realtime``.
+times real time); the same test runs in real time, marked ``realtime``, twice
+in CI (each life takes about a minute of wall time) and 20 times with
+``--restarts 20``.
 """
 
 from __future__ import annotations
@@ -35,7 +37,10 @@ from daemon.control.encoders import wrap_angle
 from daemon.supervisor.prechecks import MOTION_COMMANDS, PrecheckLimits
 
 POISE = [sys.executable, "-m", "daemon.cli"]
-RESTARTS = 20
+LOCKSTEP_RESTARTS = 20
+# Each real-time life settles, homes and swings up on the wall clock (about a minute), so CI runs
+# two; `pytest -m realtime tests/test_daemon_restart.py --restarts 20` is the full trial.
+REAL_TIME_RESTARTS = 2
 BALANCE_S = 0.5  # rig time balanced before each kill
 START_LIMIT_S = 60.0
 STEP_LIMIT_S = 120.0  # wall time for one step (homing, swing-up) in real time
@@ -45,6 +50,9 @@ MOTION_ARGS = {"excite": {"kind": "chirp", "duration_s": 1.0}}
 # more friction, so the pendulum settles within a few tens of seconds of rig time, and each life
 # homes only once it hangs still (an invented value of our own scenario).
 SETTLING_PIVOT = {"pivot_viscous_nms_per_rad": "0.003"}
+# Its swing-up pushes gentler than the default 4 m/s^2, so no life's catch comes near the
+# 1.5 m/s overspeed limit (a choice of this scenario's, not a Poise default).
+GENTLE_SWING_UP = "[swing_up]\nmax_accel_mps2 = 3.0\n"
 
 
 class SimProcess:
@@ -164,8 +172,8 @@ async def refuses_motion_until_reset(client: ApiClient, held: list[str]) -> None
     assert (await client.request("home"))["state"] == "HOMING"
 
 
-async def to_balance(client: ApiClient) -> float:
-    """From homing to balance; returns the rig time at which balance was first seen."""
+async def to_balance(client: ApiClient) -> None:
+    """From homing to balance, held ``BALANCE_S`` of rig time."""
     await first_status(client, lambda s: s["state"] == "IDLE" and s["homed"], "homing")
     await client.request("arm")
     while True:
@@ -179,7 +187,6 @@ async def to_balance(client: ApiClient) -> float:
     balanced = await first_status(client, lambda s: s["state"] == "BALANCE", "the catch")
     t_balance = balanced["t_s"]
     await first_status(client, lambda s: s["t_s"] >= t_balance + BALANCE_S, "balance")
-    return t_balance
 
 
 def stored_span(db_path: Path, run_id: int) -> tuple[int, int, int, int]:
@@ -207,20 +214,19 @@ async def poise_runs(config: Path) -> list[dict]:
     return json.loads(out)
 
 
-async def kill_during_balance_and_restart(tmp_path: Path, *sim_options: str) -> None:
-    config = write_rig_config(tmp_path, KESTREL, edits=SETTLING_PIVOT)
+async def kill_during_balance_and_restart(tmp_path: Path, restarts: int, *sim_options: str) -> None:
+    config = write_rig_config(tmp_path, KESTREL, extra=GENTLE_SWING_UP, edits=SETTLING_PIVOT)
     still = hanging_still(config)
     socket_path, db_path, log = tmp_path / "poise.sock", tmp_path / "runs.db", tmp_path / "daemon.log"
-    balance_seen_s: list[float] = []
     async with simulator(config, *sim_options) as sim:
         held = ["device.reset"]  # the freshly powered-up rig's F_RESET
-        for _ in range(RESTARTS):
+        for _ in range(restarts):
             daemon = await start_daemon(config, sim, log)
             try:
                 async with await connect(daemon, socket_path, log) as client:
                     await first_status(client, still, "the pendulum to settle", faults_allowed=True)
                     await refuses_motion_until_reset(client, held)
-                    balance_seen_s.append(await to_balance(client))
+                    await to_balance(client)
             finally:
                 daemon.kill()
                 await daemon.wait()
@@ -236,12 +242,13 @@ async def kill_during_balance_and_restart(tmp_path: Path, *sim_options: str) -> 
         assert daemon.returncode == 0, log.read_text()[-2000:]
 
     runs = await poise_runs(config)
-    assert [run["outcome"] for run in runs] == ["aborted"] * RESTARTS + ["completed"]
-    for run, t_balance_s in zip(runs, balance_seen_s, strict=False):
+    assert [run["outcome"] for run in runs] == ["aborted"] * restarts + ["completed"]
+    for run in runs[:restarts]:
         first_us, last_us, last_host_ns, mode = stored_span(db_path, run["run_id"])
         assert (run["mode_reached"], run["last_mode"]) == ("BALANCE", "BALANCE")
-        assert mode == 5  # BALANCE: the run ends at the last sample stored before the kill
-        assert last_us * 1e-6 >= t_balance_s
+        # The run ends at the last sample stored before the kill, in BALANCE. (A kill loses the
+        # writer's transaction in flight: up to two 50 ms flush intervals, many samples in lockstep.)
+        assert mode == 5
         assert run["duration_s"] == pytest.approx((last_us - first_us) * 1e-6, abs=1e-9)
         conn = sqlite3.connect(db_path)
         try:
@@ -253,14 +260,16 @@ async def kill_during_balance_and_restart(tmp_path: Path, *sim_options: str) -> 
         assert run["ended_unix_ns"] == run["started_unix_ns"] + last_host_ns - started_host_ns
 
 
-async def test_a_daemon_killed_during_balance_20_times_comes_up_faulted_until_reset_lockstep(
-    tmp_path,
+async def test_a_daemon_killed_during_balance_and_restarted_comes_up_faulted_until_reset_lockstep(
+    tmp_path, request
 ):
-    await kill_during_balance_and_restart(tmp_path, "--lockstep")
+    restarts = request.config.getoption("--restarts") or LOCKSTEP_RESTARTS
+    await kill_during_balance_and_restart(tmp_path, restarts, "--lockstep")
 
 
 @pytest.mark.realtime
-async def test_a_daemon_killed_during_balance_20_times_comes_up_faulted_until_reset_real_time(
-    tmp_path,
+async def test_a_daemon_killed_during_balance_and_restarted_comes_up_faulted_until_reset_real_time(
+    tmp_path, request
 ):
-    await kill_during_balance_and_restart(tmp_path)
+    restarts = request.config.getoption("--restarts") or REAL_TIME_RESTARTS
+    await kill_during_balance_and_restart(tmp_path, restarts)
