@@ -31,6 +31,10 @@ F_DRIVER = 2
 F_SUPPLY = 4
 F_RESET = 8  # set after power-up or reset
 F_ESTOP = 16  # e-stop button pressed
+FAULT_BIT_NAMES = {
+    F_WATCHDOG: "F_WATCHDOG", F_DRIVER: "F_DRIVER", F_SUPPLY: "F_SUPPLY", F_RESET: "F_RESET",
+    F_ESTOP: "F_ESTOP",
+}
 
 # status (Telemetry.status)
 ST_ARMED = 1

@@ -21,6 +21,10 @@ It follows protocol/PROTOCOL.md (sections 5-10) as a firmware author would:
   latched. Latched faults refuse Arm until ClearFaults, which clears only
   faults whose cause is gone (F_ESTOP stays while the button is pressed).
 - A FaultReport is sent whenever a fault bit becomes latched.
+- It counts the Telemetry frames it hands to its transport: ``telemetry_sent``
+  since it started, ``stream_telemetry_sent`` since the last accepted Configure
+  (the stream a host sees from seq 0), so a test can hold a host's records
+  against what the rig really sent.
 - Each type of message sent has its own sequence counter (Telemetry's is the
   sample index).
 - A well-framed frame (valid COBS, CRC, version and flags) of a type the
@@ -33,6 +37,7 @@ from __future__ import annotations
 
 import asyncio
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 
 from protocol import FrameDecoder, RejectedFrame, encode, encode_telemetry
@@ -153,6 +158,10 @@ class SimulatedDevice:
         self.estop_pressed = False
         self.stuck_switches = 0
         self.resets = 0
+        self.telemetry_sent = 0
+        self.stream_telemetry_sent = 0
+        # Told (fault bit, detail) whenever a fault becomes latched, e.g. to log it.
+        self.on_fault_latched: Callable[[int, float], None] | None = None
         supply_v = sensors.params.supply_v
         self.supply_v = NAN if supply_v is None else supply_v  # as measured; NaN: not fitted
         self._jittery = sensors.jittery
@@ -257,6 +266,8 @@ class SimulatedDevice:
             return
         self.faults |= bit
         self._send(encode(FaultReport(self._next_seq(FaultReport), self.faults, bit, detail)))
+        if self.on_fault_latched is not None:
+            self.on_fault_latched(bit, detail)
 
     # -- incoming ------------------------------------------------------------------
 
@@ -325,6 +336,7 @@ class SimulatedDevice:
         self._period_us = round(1e6 / rate)
         self.plant.substeps = self._substeps_per_sample(self._period_us)
         self._sample_seq = -1
+        self.stream_telemetry_sent = 0
         self._first_sample = True
         self._last_feed_us = self.t_us
         assert self._loop is not None, "start() the device before it receives commands"
@@ -420,6 +432,8 @@ class SimulatedDevice:
         )
         if self.sim_time_us >= self._stall_until_us:  # as _send
             self.transport.write(frame)
+            self.telemetry_sent += 1
+            self.stream_telemetry_sent += 1
 
     # -- faults and the operator's button ------------------------------------------
 

@@ -259,5 +259,8 @@ class FaultyLine(Transport):
             self.frames_corrupted += 1
         self.inner.write(data)
 
+    def unread_bytes(self) -> int:
+        return self.inner.unread_bytes()
+
     def close(self) -> None:
         self.inner.close()

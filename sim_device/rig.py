@@ -39,6 +39,7 @@ __all__ = ["RigSpec", "SimulatedRig"]
 
 HANGING_AT_REST: State = (0.0, 0.0, math.pi, 0.0)
 NO_FAULTS = FaultPlan()
+DRAIN_POLL_S = 0.01
 
 
 @dataclass(frozen=True)
@@ -106,6 +107,14 @@ class SimulatedRig:
 
     def close(self) -> None:
         self.device.close()
+
+    async def stop_sampling(self, drain_timeout_s: float) -> None:
+        """Take no more samples, then wait (up to ``drain_timeout_s``) until the host has read
+        everything sent, so closing loses nothing a reading host would have had."""
+        self.clock.stop()
+        deadline = asyncio.get_running_loop().time() + drain_timeout_s
+        while self.transport.unread_bytes() and asyncio.get_running_loop().time() < deadline:
+            await asyncio.sleep(DRAIN_POLL_S)
 
     @property
     def where(self) -> str:

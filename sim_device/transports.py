@@ -20,8 +20,11 @@ and counted in ``tx_bytes_dropped``, as a UART drops bytes nobody reads.
 from __future__ import annotations
 
 import asyncio
+import fcntl
 import os
 import socket
+import struct
+import termios
 import tty
 from abc import ABC, abstractmethod
 from collections import deque
@@ -61,6 +64,10 @@ class Transport(ABC):
     @abstractmethod
     def close(self) -> None:
         """Stop delivering and release the link. Safe to call twice."""
+
+    def unread_bytes(self) -> int:
+        """Bytes sent that the host has not read yet, where the link can tell (else 0)."""
+        return 0
 
 
 class PtyTransport(Transport):
@@ -105,6 +112,12 @@ class PtyTransport(Transport):
             sent = 0
         if sent < len(data):
             self.tx_bytes_dropped += len(data) - sent
+
+    def unread_bytes(self) -> int:
+        """Bytes waiting at the slave end for the host to read (FIONREAD)."""
+        if self._slave < 0:
+            return 0
+        return struct.unpack("i", fcntl.ioctl(self._slave, termios.FIONREAD, b"\0\0\0\0"))[0]
 
     def close(self) -> None:
         if self._master < 0:

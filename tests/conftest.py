@@ -8,3 +8,13 @@ a real rig). They run on their own, after the rest (the README's test command:
 ``pytest -n 2 -m "not realtime"``, then ``pytest -m realtime``), so the suite's
 own parallel load is not what they measure; the shared machine's load still is.
 """
+
+import pytest
+
+
+def pytest_addoption(parser: pytest.Parser) -> None:
+    parser.addoption(
+        "--restarts", type=int, default=None, metavar="N",
+        help="kill -9 and restart the daemon N times in tests/test_daemon_restart.py "
+        "(default: 20 in lockstep, 2 in real time, where each life takes about a minute)",
+    )

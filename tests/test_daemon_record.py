@@ -133,6 +133,7 @@ async def test_sigterm_of_poise_run_ends_its_run_with_a_summary_of_the_store(tmp
     try:
         async with asyncio.timeout(60.0):
             async with await wait_for_daemon(tmp_path / "poise.sock", retry_s=0.1) as client:
+                await client.request("reset")  # the rig's power-up flag: taken into use
                 while (await client.request("status"))["recording"]["samples"] < 500:
                     await asyncio.sleep(0.05)  # polling a remote daemon, as a CLI user would
         daemon.send_signal(signal.SIGTERM)

@@ -65,9 +65,13 @@ async def running_service(
     tmp_path: Path, *, base: Path = KESTREL, extra: str = "", faults: FaultPlan | None = None,
     serve_api: bool = False, lockstep: bool = True, edits: dict[str, str] | None = None,
     supply_v: float | None = None, encoder_noise_counts: float = 0.0, link: RigLink = "pty",
-    api: str = "",
+    api: str = "", power_up_reset: bool = True,
 ) -> AsyncIterator[PoiseService]:
     """The daemon on the built-in simulated rig; ``supply_v`` fits the rig a supply measurement.
+
+    A freshly powered-up rig holds F_RESET, so the daemon comes up in FAULT (``device.reset``);
+    with ``power_up_reset`` the operator's reset that takes the rig into use is made here, as
+    its own step, and the service is handed over IDLE.
 
     The rig's encoders have no noise beyond quantisation unless ``encoder_noise_counts`` is given,
     so a test's figures do not depend on a seed.
@@ -80,6 +84,9 @@ async def running_service(
     service = PoiseService(parse_config(text), text, sim=options, serve_api=serve_api)
     await service.start()
     try:
+        if power_up_reset:
+            assert latched(service) == ["device.reset"], service.supervisor.machine.faults
+            await reset_to_idle(service)
         yield service
     finally:
         await service.close()

@@ -328,10 +328,10 @@ async def test_the_rig_link_panel_shows_loop_lag_and_the_worst_read_gap_against_
 
 
 async def test_a_latched_fault_shows_its_hint_and_says_plainly_when_it_has_latched_again(tmp_path):
-    # The simulated motor driver reports a fault, is reset from the dashboard, then reports one
+    # The simulated motor driver reports a fault (after the rig's power-up flag has been reset), is reset from the dashboard, then reports one
     # again: the second is scheduled only once the dashboard has shown the reset, however fast
     # or slow the lockstep rig runs against the dashboard.
-    faults = FaultPlan(events=((0.5, DriverFault()),))
+    faults = FaultPlan(events=((2.0, DriverFault()),))
     hint = FAULT_HINTS["device.driver"]
     async with running_service(tmp_path, serve_api=True, faults=faults) as service:
         app = dashboard(service)

@@ -3,8 +3,8 @@
 - `poise session --port` against `poise sim --pty` in another process: home,
   swing up, catch and balance for 20 s, stop, with every trip counted (none
   allowed); the disturbance asked of the operator is recorded at its time.
-- `poise demo` in a real terminal (tmux): the operator's keys home, arm and
-  swing up; the pendulum balances for 20 s with the dashboard attached.
+- `poise demo` in a real terminal (tmux): the operator's keys reset the rig's
+  power-up flag, home, arm and swing up; the pendulum balances for 20 s with the dashboard attached.
 
 Each prints the daemon's loop lag (p99, max) and the longest wait between two
 telemetry reads, the figures that say how close the machine came to the
@@ -100,6 +100,12 @@ def test_the_readme_demo_homes_swings_up_and_balances_with_the_dashboard_attache
             terminal.wait_for("go ahead")
             terminal.keys("y")
 
+        powered_up = status()
+        assert (powered_up["state"], [f["name"] for f in powered_up["faults"]]) == (
+            "FAULT", ["device.reset"]
+        )
+        terminal.keys("c")  # the operator's reset takes the just powered-up rig into use
+        wait_state("IDLE", limit_s=10.0)
         terminal.keys("h")
         terminal.wait_for("I understand")  # the safety caution, once per dashboard session
         terminal.keys("Enter")

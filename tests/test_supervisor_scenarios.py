@@ -210,14 +210,19 @@ def test_a_stop_that_does_not_slow_the_cart_becomes_a_drive_off_fault():
     assert rig.sup.status()["faults"][-1]["reason"].startswith("stop.overdue")
 
 
-def test_device_reset_while_idle_forgets_the_homing():
+def test_device_reset_while_idle_forgets_the_homing_and_latches_until_an_operator_reset():
     rig = Rig()
     rig.connect()
     rig.do("home")
     rig.sup.notify(Event.HOMING_DONE, "control", rig.t_s)
     assert rig.sample(faults=F_RESET).name == "device.reset"
-    assert rig.sup.machine.state is State.IDLE
+    assert rig.sup.machine.state is State.FAULT
     assert not rig.sup.machine.homed
+    for command in ("home", "arm"):  # ISO 13850: only a deliberate reset takes the rig back
+        with pytest.raises(CommandRefused, match="fault latched"):
+            rig.sup.execute(command, {}, "cli")
+    rig.do("reset")
+    assert rig.sup.machine.state is State.IDLE
 
 
 def test_events_that_do_not_apply_are_logged_and_ignored():

@@ -1,5 +1,11 @@
 """`poise sim`: run a simulated rig on a pseudo-terminal or a loopback TCP port until stopped.
 
+Every fault the rig latches (its watchdog when the host stops commanding it,
+an injected driver fault, the e-stop button) is said on stderr with its
+simulated time. Stopped (SIGINT, SIGTERM), it takes no more samples, lets the host read what
+it has sent, and prints on stderr how many Telemetry frames it sent (in all,
+and since its last accepted Configure: the stream the host last saw from seq 0).
+
 The rig is built from a rig config (the demo rig by default): the same plant
 parameters, encoder resolutions, sample rate and watchdog the daemon would use
 with the real rig. Fault options inject faults at simulated times (seconds
@@ -21,6 +27,9 @@ if TYPE_CHECKING:
     from sim_device.faults import FaultEvent, FaultPlan
 
 NAME = "sim"
+# On SIGINT/SIGTERM the rig stops sampling and waits this long at most for the host to read what
+# it has sent before closing the port.
+DRAIN_TIMEOUT_S = 2.0
 HELP = "run a simulated rig on a pty or a TCP port until Ctrl-C (prints where to connect)"
 
 
@@ -180,6 +189,7 @@ def run(args: argparse.Namespace) -> int:
     from daemon.config import load_config
     from daemon.config.plant import rig_spec
     from daemon.runtime import event_loop
+    from protocol import FAULT_BIT_NAMES
     from sim_device.rig import SimulatedRig
     from sim_device.transports import PtyTransport, TcpTransport
 
@@ -201,6 +211,13 @@ def run(args: argparse.Namespace) -> int:
         for signum in (signal.SIGINT, signal.SIGTERM):
             loop.add_signal_handler(signum, stopped.set)
         rig = SimulatedRig(spec, transport, lockstep=args.lockstep, seed=args.seed, faults=plan)
+
+        def fault_latched(bit: int, detail: float) -> None:
+            print(f"simulated rig latched {FAULT_BIT_NAMES.get(bit, hex(bit))} at "
+                  f"{rig.sim_time_s:.3f} simulated seconds (detail {detail:g})",
+                  file=sys.stderr, flush=True)
+
+        rig.device.on_fault_latched = fault_latched
         try:
             rig.start(loop)
         except OSError as exc:
@@ -213,9 +230,16 @@ def run(args: argparse.Namespace) -> int:
         )
         try:
             await stopped.wait()
+            await rig.stop_sampling(DRAIN_TIMEOUT_S)
         finally:
             rig.close()
-        print(f"simulated rig stopped after {rig.sim_time_s:.3f} simulated seconds", file=sys.stderr)
+        device = rig.device
+        print(
+            f"simulated rig stopped after {rig.sim_time_s:.3f} simulated seconds; sent "
+            f"{device.telemetry_sent} Telemetry frames, {device.stream_telemetry_sent} since its "
+            f"last Configure; {rig.transport.tx_bytes_dropped} bytes dropped unread",
+            file=sys.stderr,
+        )
 
     event_loop.run(serve())  # timers to the microsecond: samples at even intervals
     return 0

@@ -11,9 +11,11 @@ device reset.
 Handshake: :meth:`Link.identify` (Identify -> DeviceHello, refused with one
 line naming both protocol versions and both schema fingerprints if they differ),
 then, once the host has settled what it needs from the hello, :meth:`Link.configure`
-(ClearFaults, the reset flag every power-up sets, and Configure: sample rate and
-device watchdog), each retried until answered. Telemetry starts at seq 0 once
-the device accepts Configure.
+(Configure: sample rate and device watchdog), retried until answered. Telemetry
+starts at seq 0 once the device accepts Configure. The handshake clears no
+faults: whatever the device holds latched (F_RESET after its power-up,
+F_WATCHDOG after a host that died) shows in its telemetry, and only an
+operator's deliberate reset sends ClearFaults (PROTOCOL.md section 10).
 
 Heartbeats: while the cycle answers telemetry its Drive frames feed the device
 watchdog. :meth:`Link.poll` sends a Heartbeat whenever no frame at all has gone
@@ -30,7 +32,6 @@ import os
 from collections.abc import Callable
 
 from protocol import (
-    ClearFaults,
     Configure,
     DeviceHello,
     FaultReport,
@@ -233,12 +234,11 @@ class Link:
         return hello
 
     async def configure(self, sample_rate_hz: int, watchdog_ms: int) -> None:
-        """ClearFaults (the reset flag every power-up sets), then Configure; raises LinkDown.
+        """Configure; raises LinkDown. Latched device faults are left as they are.
 
         Telemetry starts at seq 0 once the device accepts Configure, possibly in the same read
         as the Reply: whatever the host must know to read it (the pacing) is settled before.
         """
-        await self.request(ClearFaults)  # a refusal (button pressed) is seen in telemetry
         reply = await self.request(lambda seq: Configure(seq, sample_rate_hz, watchdog_ms))
         assert isinstance(reply, Reply)
         if reply.result != ReplyResult.ACCEPTED:

@@ -16,8 +16,11 @@ Link events: a DeviceHello nobody asked for means the device reset (trip
 ``device.reset``; the link is configured again so telemetry resumes, the
 fault stays latched); a port that fails or closes trips ``link.lost`` and the
 service keeps trying to reopen it; the watchdog trips ``link.timeout`` when
-telemetry stops. An operator ``reset`` also sends ClearFaults to the device; the
-faults it clears are not acted on again until the device has answered.
+telemetry stops. Whatever faults the rig holds latched as its telemetry (re)starts
+(F_RESET after its power-up, F_WATCHDOG after a host that died) are latched here
+too, each with its reason, so a daemon comes up in FAULT until an operator
+``reset``: the only thing that sends ClearFaults to the device; the faults it
+clears are not acted on again until the device has answered.
 """
 
 from __future__ import annotations
@@ -31,6 +34,7 @@ import signal
 import sys
 import time
 from collections.abc import Callable
+from dataclasses import replace
 from pathlib import Path
 
 from daemon.api.paths import control_socket_path
@@ -48,6 +52,7 @@ from daemon.runtime.pacing import PacingRefused, pacing_for
 from daemon.runtime.timing import LagRing, TimingDigest
 from daemon.runtime.watchdog import run_watchdog
 from daemon.supervisor import Action, Event, State, Supervisor, Trip, state_code_table
+from daemon.supervisor.interlocks import flag_trips
 from daemon.supervisor.machine import LogEntry
 from daemon.supervisor.states import MOTION_STATES
 from daemon.version import software_version
@@ -379,6 +384,9 @@ class PoiseService:
     def _clear_device_faults(self, faults: int) -> None:
         cycle = self.cycle
         cycle.fault_mask = ~faults & 0xFFFF
+        # A motion command right after the reset is judged on the flags as they are now, not on
+        # the last sample's (which may be all the daemon has seen since the reset).
+        self.supervisor.faults &= cycle.fault_mask
 
         def answered(future: asyncio.Future) -> None:
             cycle.fault_mask = 0xFFFF
@@ -526,6 +534,26 @@ class PoiseService:
     def _telemetry_resumed(self) -> None:
         if not self.supervisor.machine.link_up:
             self._notify(Event.LINK_UP, "telemetry flowing")
+        self._latch_held_faults()
+
+    def _latch_held_faults(self) -> None:
+        """Latch every fault the rig holds as its telemetry (re)starts, each under its own name.
+
+        The handshake clears nothing, so a rig just powered up shows F_RESET and one whose last
+        host died shows F_WATCHDOG: the daemon comes up in FAULT (or ESTOP) saying so, and only
+        an operator reset clears them (the per-sample check would latch only the first).
+        """
+        tm = self.cycle.last_telemetry
+        faults = 0 if tm is None else tm.faults & self.cycle.fault_mask  # not those being cleared
+        if not faults:
+            return
+        log.warning("the rig holds faults 0x%04x as telemetry starts: a reset is needed", faults)
+        latched = {fault.name for fault in self.supervisor.machine.faults}
+        for held in flag_trips(self.supervisor.limits, 0, 0.0, 0.0, 0, faults):
+            if held.name in latched:  # latched already (a device reset said so as it happened)
+                continue
+            self._trip(replace(held, reason=f"held latched by the rig as its telemetry started: "
+                               f"{held.reason}"))
 
     def _expecting_telemetry(self) -> bool:
         return self.link is not None and not self.handshaking and not self.closing

@@ -1,4 +1,12 @@
-"""One unattended session: home, arm, swing up, catch, balance for a while, stop, disarm.
+"""One unattended session: reset, home, arm, swing up, catch, balance for a while, stop, disarm.
+
+The daemon comes up in FAULT when the rig holds a latched fault (F_RESET after
+its power-up, F_WATCHDOG after a host that died); nothing clears those but an
+operator's reset. Starting a session is the operator's decision to take the
+rig into use, so its first step is that reset, said on stderr and recorded as a
+``session.reset`` event: for those two faults only. Anything else latched (the
+rig's e-stop, a driver or supply fault) needs a person at the rig, and the
+session refuses to start.
 
 :func:`run_session` drives a started :class:`PoiseService` through the same
 operator commands a person would send (source ``"session"``), waiting on the
@@ -39,6 +47,9 @@ BALANCED = "balanced"
 SESSION_START_S = 10.0  # rig time of the first command, if the rig has not been up that long
 
 _LATCHED = {State.FAULT, State.ESTOP, State.DISCONNECTED}
+#: What a session resets as its first step: the rig's power-up flag and the watchdog trip a
+#: previous host left behind.
+TAKE_INTO_USE_FAULTS = frozenset({"device.reset", "device.watchdog"})
 _COL = {name: index for index, name in enumerate(SAMPLE_COLUMN_NAMES)}
 
 
@@ -99,6 +110,7 @@ async def run_session(
     samples_before, missed_before = cycle.samples, cycle.missed
     t_balance: float | None = None
     try:
+        take_rig_into_use(service)
         # Begin at a set time of the rig's clock: a seeded simulated rig (whose noise depends on
         # the seed and its clock only) then gives the same run every time, however long the
         # daemon's start took by the wall clock. A rig up for longer starts on its next second.
@@ -152,6 +164,28 @@ async def run_session(
         "balance_s": result.balance_s, "samples": result.samples, "trips": result.trips,
     })
     return result
+
+
+def take_rig_into_use(service: PoiseService) -> None:
+    """The session's first operator step: reset what the rig holds from its power-up or a previous
+    host, said on stderr and recorded; refused if anything else is latched."""
+    machine = service.supervisor.machine
+    if machine.state not in (State.FAULT, State.ESTOP):
+        return
+    names = [fault.name for fault in machine.faults]
+    if machine.state is State.ESTOP or not set(names) <= TAKE_INTO_USE_FAULTS:
+        raise _Stopped(
+            "refused", f"the rig has {', '.join(names)} latched: make it safe, then `poise reset`"
+        )
+    print(
+        f"poise session: operator step: reset ({', '.join(names)} held by the rig from its "
+        "power-up or a previous host)", file=sys.stderr, flush=True,
+    )
+    service.record_event("session.reset", "session", {"faults": names})
+    try:
+        service.execute("reset", {}, "session")
+    except CommandRefused as refused:
+        raise _Stopped("refused", f"reset refused: {refused.reason}") from None
 
 
 def _disturb(service: PoiseService, t_balance: float, disturbance: Disturbance) -> asyncio.Task:

@@ -55,8 +55,9 @@ FAULT_HINTS: dict[str, str] = {
     "cabling",
     "device.watchdog": "the rig cut its motor because commands stopped: the daemon was killed "
     "or blocked, or the link broke; reset once the cause is clear",
-    "device.reset": "the rig's microcontroller restarted: a brown-out (check the supply) or a "
-    "firmware fault",
+    "device.reset": "the rig's microcontroller has started since its faults were last cleared: "
+    "when the daemon has just connected this is its power-up, and a reset takes the rig into "
+    "use; while running, a brown-out (check the supply) or a firmware fault",
     "device.driver": "the motor driver reports a fault: over-current or over-temperature; let "
     "it cool and check the wiring",
     "stop.overdue": "the cart did not stop in time under the controlled stop: check the drive "

@@ -313,15 +313,17 @@ def flag_trips(
             {"switches": float(switches), "faults": float(faults)},
             estop=True,
         ))
-    if faults & F_RESET:
-        trips.append(Trip(
-            "device.reset", Action.DRIVE_OFF, "the rig reset itself", {"faults": float(faults)}
-        ))
     for bit, name in _DEVICE_FAULTS:
         if faults & bit:
             trips.append(Trip(
                 name, Action.DRIVE_OFF, f"rig reports fault {name}", {"faults": float(faults)}
             ))
+    if faults & F_RESET:  # after the faults: held from power-up until a reset, it must hide none
+        trips.append(Trip(
+            "device.reset", Action.DRIVE_OFF,
+            "the rig has powered up or reset since its faults were last cleared (F_RESET)",
+            {"faults": float(faults)},
+        ))
     if switches & SW_END_STOP:
         trips.append(Trip(
             "track.end_stop", Action.DRIVE_OFF, "cart against a hard end stop",

@@ -72,7 +72,9 @@ def _build() -> dict[tuple[State, Trigger], tuple[State, ...]]:
         table[(state, E.ESTOP_BUTTON)] = (S.ESTOP,)
     allow([S.DISCONNECTED], E.LINK_UP, S.IDLE)
     allow([S.IDLE], E.LINK_DOWN, S.DISCONNECTED)
-    allow([S.IDLE], E.DEVICE_RESET)  # nothing moving; the machine forgets the homing
+    # The rig holds F_RESET (its power-up, or a reset since): the machine forgets the homing, and
+    # only a deliberate operator reset (ClearFaults) takes the rig into use.
+    allow([S.IDLE], E.DEVICE_RESET, S.FAULT)
     allow([S.IDLE], C.ARM, S.READY)
     allow([S.IDLE], C.HOME, S.HOMING)
     allow([S.READY], C.DISARM, S.IDLE)
