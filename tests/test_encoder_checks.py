@@ -103,3 +103,27 @@ def test_a_frozen_cart_reading_under_a_constant_force_trips_when_the_model_cart_
             break
     # Euler steps and the viscous term make it a little later than the formula; within 3 samples.
     assert tripped_s == pytest.approx(expected_s, abs=3 * dt)
+
+
+def test_a_lost_sample_at_full_speed_is_no_glitch():
+    # The cart at a steady 1.2 m/s, one Telemetry frame lost on the way: the estimator's raw rate
+    # of the sample after the gap spans two periods over one period's time (2.4 m/s), and the
+    # sample after that is back to 1.2 m/s. Neither is a miscount of the encoder.
+    checks, dt, _q_th, _flicker = kestrel_checks()
+    speed = 1.2
+    times = [k * dt for k in range(1, 40) if k != 20]
+    trips, last_x = [], 0.0
+    for t in times:
+        x = speed * t
+        raw_v = (x - last_x) / dt  # what the estimator computes: one period, whatever has passed
+        trips.append(checks.check(t, raw_v, math.pi, 0.0, 6.0))
+        last_x = x
+    assert trips == [None] * len(times)
+    # And a real jump right after the gap is still caught, one sample later.
+    checks.pause()
+    trips = [checks.check(t, speed, math.pi, 0.0, 6.0) for t in times[:19]]
+    trips += [checks.check(times[19], 2 * speed, math.pi, 0.0, 6.0)]  # the gap's span
+    trips += [checks.check(times[20], speed, math.pi, 0.0, 6.0)]
+    jump = checks.limits.cart_jump_mps + 0.1
+    tripped = checks.check(times[21], speed + jump, math.pi, 0.0, 6.0)
+    assert trips == [None] * 21 and tripped is not None and tripped.name == "encoder.cart_glitch"

@@ -76,8 +76,9 @@ homing's start or end, swing-up, a stop's deceleration or a fall all bend it.
 
 The checks forget their episodes whenever they pause (:meth:`EncoderChecks.pause`)
 or a sample does not follow its predecessor by one period (telemetry lost on
-the way: the raw rates then span several periods), so a check that resumes
-starts from the readings it then sees.
+the way: that sample's raw rates span several periods over one period's time,
+so they are not rates at all), so a check that resumes starts from the readings
+it then sees, and from the rates of the first sample whose predecessor it has.
 """
 
 from __future__ import annotations
@@ -204,6 +205,7 @@ class EncoderChecks:
         "_pend_sin",
         "_pend_t_s",
         "_pend_x",
+        "_rates_known",
         "_v",
         "_w",
         "limits",
@@ -215,6 +217,7 @@ class EncoderChecks:
         margin = replace(params, cart_coulomb_n=CART_FRICTION_MARGIN * params.cart_coulomb_n)
         self._accel = acceleration_function(margin)
         self._active = False
+        self._rates_known = False
         self._v = self._w = 0.0
         self._cart_moved_m = self._model_m = self._model_v = 0.0
         self._last_t_s = 0.0
@@ -245,9 +248,15 @@ class EncoderChecks:
         self._last_t_s = t_s
         if not (self._active and follows):  # resuming: these readings are the start of everything
             self._active = True
+            self._rates_known = follows  # after lost telemetry these "rates" span the gap
             self._v, self._w = v_mps, omega_radps
             self._start_cart(v_mps)
             self._start_pendulum(t_s, theta_rad)
+            return None
+        if not self._rates_known:  # the first rates over one period since the gap
+            self._rates_known = True
+            self._v, self._w = v_mps, omega_radps
+            self._start_cart(v_mps)
             return None
         dv, dw = v_mps - self._v, omega_radps - self._w
         self._v, self._w = v_mps, omega_radps
