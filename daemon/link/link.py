@@ -81,6 +81,7 @@ class Link:
         "heartbeats_sent",
         "hello",
         "stats",
+        "stream_started",
         "tx_bytes_dropped",
     )
 
@@ -100,6 +101,10 @@ class Link:
         self.stats = stats if stats is not None else LinkStats()
         self.decoder = FrameDecoder(self.stats)
         self.hello: DeviceHello | None = None
+        # Set as the device's Reply accepting Configure is read, before any Telemetry after it:
+        # Telemetry read before that is another stream's (a rig that kept sampling while no host
+        # was there, or a lockstep rig's last unanswered sample), not this link's.
+        self.stream_started = False
         self.device_resets = 0
         self.heartbeats_sent = 0
         self.tx_bytes_dropped = 0
@@ -174,6 +179,8 @@ class Link:
         if kind is Reply or kind is DeviceHello:
             answered = self._retry.resolve(message)
             if answered is not None:
+                if type(answered) is Configure and message.result == ReplyResult.ACCEPTED:
+                    self.stream_started = True
                 future = self._answers.pop((answered.TYPE_ID, answered.seq), None)
                 if future is not None and not future.done():
                     future.set_result(message)

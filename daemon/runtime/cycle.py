@@ -146,6 +146,7 @@ class ControlCycle:
         "on_state_change",
         "pacing",
         "put_sample",
+        "stale_telemetry",
         "supervisor",
         "t_s",
         "telemetry_flowing",
@@ -189,6 +190,7 @@ class ControlCycle:
         self.waiters = RigTimeWaiters()
         # Per-sample state, readable by status and the watchdog.
         self.missed = 0
+        self.stale_telemetry = 0  # read before this link's Configure was accepted: ignored
         self.t_s = 0.0
         self.measured: Measured = (0.0, 0.0, math.pi, 0.0)
         self.last_drive = 0.0
@@ -296,6 +298,8 @@ class ControlCycle:
         if tm is None:
             return
 
+        if not self.telemetry_flowing and self._stale():
+            return
         (seq, t_us, cart_counts, pendulum_counts, switches, faults, status, applied,
          _motor_current_a, supply_v, _late_commands) = tm
         if status & _LOCKSTEP != self._lockstep_bit:
@@ -378,6 +382,8 @@ class ControlCycle:
         The estimator's rates assume one sample period per update, so skipping its update would
         scale the velocity estimates of the answered sample by the number of periods missed.
         """
+        if not self.telemetry_flowing and self._stale():
+            return
         self.missed += 1
         x, v, th, w = self._estimator.update(tm.cart_counts, tm.pendulum_counts, self._prev_applied)
         self._prev_applied = tm.drive_applied
@@ -385,6 +391,18 @@ class ControlCycle:
             tm.seq, tm.t_us, t0, tm.cart_counts, tm.pendulum_counts, tm.switches, tm.faults,
             x, v, th, w, None, None, self._mode_code, None, None, tm.drive_applied,
         ))
+
+    def _stale(self) -> bool:
+        """Whether a Telemetry read now, before this link's stream flows, is another stream's.
+
+        Until the device has accepted this link's Configure its telemetry belongs to no stream
+        of ours: it is counted and otherwise ignored (not answered, not recorded, not judged by
+        the pacing check, whose pacing the handshake is still settling).
+        """
+        if self.link is not None and self.link.stream_started:
+            return False
+        self.stale_telemetry += 1
+        return True
 
     def _control(
         self, state: State, setpoint_m: float, t_s: float, x: float, v: float, th: float, w: float
