@@ -78,10 +78,12 @@ def run(args: argparse.Namespace) -> int:
     sim = None if args.port else sim_options(args, lockstep=args.lockstep)
 
     async def serve() -> None:
-        service = PoiseService(config, text, port_url=args.port, sim=sim, socket_path=args.socket)
+        service = PoiseService(
+            config, text, port_url=args.port, sim=sim, socket_path=args.socket,
+            record_from_first_sample="poise run",
+        )
         await service.start()
         service.install_signal_handlers()
-        service.start_recording("poise run")
         if service.rig is not None:
             print(f"poise: simulated rig on {service.rig.where}", flush=True)
         print(f"poise: serving rig {config.rig.id} on {service.socket_path}", flush=True)

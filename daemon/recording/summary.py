@@ -14,6 +14,14 @@ to build one. Its keys:
 - ``trips``: interlock trips by name, counted from the run's ``interlock.trip``
   events; ``device_fault_reports``: its ``device.fault_report`` events. These
   are the kinds the daemon stores (daemon/runtime/service.py).
+- ``link``: the link's counters over the run (``frames_rx``, ``gaps``,
+  ``lost_frames``, ``crc_failures``, ``resyncs``, ... as in
+  :class:`protocol.link_stats.LinkStats`), from its ``link.counters`` events:
+  the daemon stores the counters when a run starts on a live link, when a link
+  is lost and when a run ends on a live link, and each link's counters start
+  at zero. ``lost_frames`` are telemetry samples the rig sent that never
+  arrived whole (sequence gaps): with ``samples`` they account for every
+  sample the rig sent during the run.
 - ``reported``: only if the caller of ``end_run`` handed over figures of its own.
 """
 
@@ -29,6 +37,27 @@ if TYPE_CHECKING:
 
 TRIP_EVENT = "interlock.trip"
 DEVICE_FAULT_EVENT = "device.fault_report"
+LINK_COUNTERS_EVENT = "link.counters"
+LINK_AT_RUN_START = "run start"  # the counters a run on a live link starts from
+
+
+def link_counters_over_run(conn: sqlite3.Connection, run_id: int) -> dict[str, int]:
+    """The link counters summed over each stretch of link within the run (module docstring)."""
+    totals: Counter[str] = Counter()
+    start: dict[str, int] = {}
+    rows = conn.execute(
+        "SELECT data_json FROM events WHERE run_id = ? AND kind = ? ORDER BY event_id",
+        (run_id, LINK_COUNTERS_EVENT),
+    )
+    for (data_json,) in rows:
+        data = json.loads(data_json)
+        counters = data["counters"]
+        if data["at"] == LINK_AT_RUN_START:
+            start = counters
+            continue
+        totals.update({name: value - start.get(name, 0) for name, value in counters.items()})
+        start = {}
+    return dict(totals)
 
 
 def run_summary(conn: sqlite3.Connection, run: RunRecord) -> dict:
@@ -58,4 +87,5 @@ def run_summary(conn: sqlite3.Connection, run: RunRecord) -> dict:
         "last_mode": run.last_mode,
         "trips": dict(trips),
         "device_fault_reports": device_faults,
+        "link": link_counters_over_run(conn, run.run_id),
     }

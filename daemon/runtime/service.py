@@ -46,6 +46,7 @@ from daemon.control.stop_capability import stop_decel_problem
 from daemon.errors import CommandRefused, OperatorError
 from daemon.link import Link, LinkDown, Port, open_port
 from daemon.recording import Recorder, RecordingError, RunMetadata
+from daemon.recording.summary import LINK_AT_RUN_START, LINK_COUNTERS_EVENT
 from daemon.runtime.cycle import ControlCycle
 from daemon.runtime.embedded_sim import SimOptions, start_embedded_rig
 from daemon.runtime.pacing import PacingRefused, pacing_for
@@ -95,7 +96,10 @@ class PoiseService:
         sim: SimOptions | None = None,
         serve_api: bool = True,
         socket_path: str | Path | None = None,
+        record_from_first_sample: str | None = None,
     ):
+        """``record_from_first_sample``: a note; the run it names opens once the rig has said who
+        it is, before it is configured, so the run holds the rig's stream from its first sample."""
         if (port_url is None) == (sim is None):
             raise ValueError("give exactly one of port_url and sim")
         self.config = config
@@ -103,6 +107,7 @@ class PoiseService:
         self.port_url = port_url
         self.sim_options = sim
         self.serve_api = serve_api
+        self.record_from_first_sample = record_from_first_sample
         self.socket_path = Path(socket_path) if socket_path else control_socket_path(config)
         self.rig: SimulatedRig | None = None
         # how to (re)open the rig's port: the URL given, or the built-in rig's link once started
@@ -227,6 +232,8 @@ class PoiseService:
         self.handshaking = True
         try:
             self.hello = hello = await link.identify()
+            if self.record_from_first_sample is not None and self.run_id is None:
+                self.start_recording(self.record_from_first_sample)
             try:
                 pacing = pacing_for(hello, self.supervisor.limits)
             except PacingRefused as refused:
@@ -328,7 +335,7 @@ class PoiseService:
         if self.hello is not None:
             h = self.hello
             firmware = f"{h.firmware_major}.{h.firmware_minor}.{h.firmware_patch}"
-        self.run_id = self.recorder.start_run(
+        run_id = self.recorder.start_run(
             RunMetadata(
                 rig_id=self.config.rig.id,
                 config_text=self.config_text,
@@ -340,13 +347,22 @@ class PoiseService:
                 operator_notes=note,
             )
         )
-        return self.run_id
+        self.run_id = run_id
+        self._record_link_counters(LINK_AT_RUN_START)
+        return run_id
 
     def end_recording(self, outcome: str, summary: dict | None = None) -> None:
         """End the open run; the recorder stores its summary (``summary`` in it as ``reported``)."""
         if self.recorder is not None and self.run_id is not None:
+            self._record_link_counters("run end")
             self.recorder.end_run(outcome, summary)
         self.run_id = None
+
+    def _record_link_counters(self, at: str) -> None:
+        """Store the live link's counters with the run: the run summary's ``link`` adds them up."""
+        if self.link is not None and self.run_id is not None and self.recorder is not None:
+            counters = self.link.stats.counters()
+            self.recorder.put_event(LINK_COUNTERS_EVENT, "link", {"at": at, "counters": counters})
 
     def record_event(self, kind: str, source: str, data: dict) -> None:
         """Store an event with the open run (and with none if nothing is recording)."""
@@ -468,6 +484,7 @@ class PoiseService:
         lag = self.loop_lag.figures_ms()
         return (
             f"{self.link.stats.summary()} missed={self.cycle.missed} "
+            f"stale_telemetry={self.cycle.stale_telemetry} "
             f"heartbeats={self.link.heartbeats_sent} device_resets={self.link.device_resets} "
             f"tx_bytes_dropped={self.link.tx_bytes_dropped} latency_us p50={digest.latency_p50_us:.1f} "
             f"p99={digest.latency_p99_us:.1f} max={digest.latency_max_us:.1f} "
@@ -592,6 +609,7 @@ class PoiseService:
         loop = asyncio.get_running_loop()
         self.cycle.detach(loop)
         self.link.fail_pending(reason)
+        self._record_link_counters("link lost")
         if self.port is not None:
             self.port.close()
         self.port = self.link = None
