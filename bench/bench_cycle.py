@@ -104,6 +104,7 @@ async def balancing_in_lockstep(folder: str, seconds: float) -> tuple[dict, dict
     await service.start()
     try:
         cycle = service.cycle
+        service.execute("reset", {}, "api")  # the simulated rig's power-up flag
         service.execute("home", {}, "api")
         await cycle.waiters.wait_for_state({State.IDLE, State.FAULT})
         service.execute("arm", {}, "api")

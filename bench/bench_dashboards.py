@@ -98,6 +98,7 @@ async def main(window_s: float) -> None:
     results = {}
     try:
         await (await wait_for_daemon(socket_path, retry_s=0.2)).close()
+        await command(socket_path, "reset")  # the simulated rig's power-up flag
         await command(socket_path, "home")
         await wait_state(socket_path, "IDLE")
         await command(socket_path, "arm")

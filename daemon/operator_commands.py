@@ -59,7 +59,7 @@ Validator = Callable[[object], object]
 
 def finite_number(value: object) -> float:
     if isinstance(value, bool) or not isinstance(value, int | float):
-        raise ValueError("must be a finite number")
+        raise ValueError("must be a finite number")  # noqa: TRY004 (validators raise ValueError: a bad argument)
     try:
         number = float(value)
     except OverflowError:  # an integer past the largest float
