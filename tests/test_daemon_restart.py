@@ -158,9 +158,10 @@ async def refuses_motion_until_reset(client: ApiClient, held: list[str]) -> None
     motion is accepted (homing starts)."""
     status = await client.request("status")
     assert status["state"] == "FAULT"
-    # Each latch the rig holds, shown with its reason and hint. (Stale lockstep telemetry read
-    # before the handshake has settled the pacing may add a link.protocol trip: latched too.)
+    # Each latch the rig holds, shown with its reason and hint, and nothing else (the old
+    # stream's telemetry, read before this link's Configure, is ignored).
     shown = {fault["name"]: fault for fault in status["faults"]}
+    assert sorted(shown) == sorted(held), shown
     for name in held:
         assert shown[name]["reason"].startswith(f"{name}: held latched by the rig"), shown
         assert shown[name]["hint"]
