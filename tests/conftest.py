@@ -16,5 +16,5 @@ def pytest_addoption(parser: pytest.Parser) -> None:
     parser.addoption(
         "--restarts", type=int, default=None, metavar="N",
         help="kill -9 and restart the daemon N times in tests/test_daemon_restart.py "
-        "(default: 20 in lockstep, 2 in real time, where each life takes about a minute)",
+        "(default: 20 in lockstep, 1 in real time, where each life takes about a minute)",
     )

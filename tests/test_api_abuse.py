@@ -49,7 +49,7 @@ FLOODER = REPO / "tests" / "api_flooder.py"
 POISE = (sys.executable, "-m", "daemon.cli")
 CATEGORY_0 = "[stop]\ncategory = 0\n"  # the e-stop switches the drive off at once: a Stop frame
 TRIALS = 10
-REAL_TIME_TRIALS = 5  # each way; a real-time trial takes wall time
+REAL_TIME_TRIALS = 3  # each way; a real-time trial takes wall time
 # The share of samples the cycle must answer while the API is flooded (the brief's figure:
 # common practice, no source).
 MIN_ANSWERED_SHARE = 0.999

@@ -40,7 +40,7 @@ from daemon.ui.widgets.link import LinkHealth
 from daemon.ui.widgets.notice import Notice
 from daemon.ui.widgets.state_panel import StatePanel
 from protocol import Drive, Stop
-from sim_device.faults import DriverFault, FaultPlan
+from sim_device.faults import DriverFault
 
 SIZE = (140, 44)
 WAIT_LIMIT_S = 60.0  # a hang guard, not a speed requirement
@@ -328,12 +328,13 @@ async def test_the_rig_link_panel_shows_loop_lag_and_the_worst_read_gap_against_
 
 
 async def test_a_latched_fault_shows_its_hint_and_says_plainly_when_it_has_latched_again(tmp_path):
-    # The simulated motor driver reports a fault (after the rig's power-up flag has been reset), is reset from the dashboard, then reports one
-    # again: the second is scheduled only once the dashboard has shown the reset, however fast
-    # or slow the lockstep rig runs against the dashboard.
-    faults = FaultPlan(events=((2.0, DriverFault()),))
+    # The simulated motor driver reports a fault, is reset from the dashboard, then reports one
+    # again. Each is scheduled on the rig's clock only once the step before it is done (the
+    # power-up reset, the dashboard showing the reset), however fast or slow the lockstep rig
+    # runs against the test.
     hint = FAULT_HINTS["device.driver"]
-    async with running_service(tmp_path, serve_api=True, faults=faults) as service:
+    async with running_service(tmp_path, serve_api=True) as service:
+        service.rig.schedule_fault(service.rig.sim_time_s + 0.5, DriverFault())
         app = dashboard(service)
         async with app.run_test(size=SIZE) as pilot:
             await until(pilot, lambda: app.state == "FAULT", "the first fault")

@@ -280,10 +280,17 @@ def test_the_end_of_a_run_stores_a_summary_computed_from_the_store(tmp_path):
     db = tmp_path / "runs.db"
     with Recorder(db) as recorder:
         run_id = recorder.start_run(metadata())
+        # The link's counters where the run starts, where the link is lost, and (on a new link,
+        # counting from zero) at the end: the run's link figures are the two stretches added up.
+        link_counters = [("run start", 100, 2), ("link lost", 1100, 5), ("run end", 50, 1)]
         for i in range(1, 2501):  # modes 0, 1, 2 (IDLE, HOMING, SWING_UP), 2 ms apart
             recorder.put_sample(sample_row(i))
             if i in (700, 1800):
                 recorder.put_event("interlock.trip", "interlock", {"name": "track.soft_limit"})
+            if i in (1, 2000, 2500):
+                at, frames_in, lost = link_counters.pop(0)
+                counters = {"frames_in": frames_in, "lost_frames": lost}
+                recorder.put_event("link.counters", "link", {"at": at, "counters": counters})
         recorder.put_event("interlock.trip", "interlock", {"name": "link.lost", "reason": "gone"})
         recorder.put_event("device.fault_report", "device", {"faults": 4, "code": 2, "detail": 0})
         recorder.put_event("supervisor.transition", "api", {"text": "IDLE -> HOMING on home"})
@@ -292,7 +299,7 @@ def test_the_end_of_a_run_stores_a_summary_computed_from_the_store(tmp_path):
     assert run.summary == {
         "samples": 2500,
         "samples_dropped": 0,
-        "events": 5,
+        "events": 5 + 3,
         "events_dropped": 0,
         "first_t_device_us": 2000,
         "last_t_device_us": 5_000_000,
@@ -303,6 +310,7 @@ def test_the_end_of_a_run_stores_a_summary_computed_from_the_store(tmp_path):
         "last_mode": "SWING_UP",
         "trips": {"track.soft_limit": 2, "link.lost": 1},
         "device_fault_reports": 1,
+        "link": {"frames_in": 1000 + 50, "lost_frames": 3 + 1},
     }
 
 
