@@ -239,6 +239,7 @@ class Replay:
         cycle.set_pacing(lockstep(supervisor.limits))  # as the frames' status bit says
         loop.remove_reader(cycle.fd)  # the replay calls the reader callback itself
         cycle.device_armed = True  # nothing to arm on a socket pair
+        link.stream_started = True  # nor to configure: these frames are this link's stream
         # Enter BALANCE: bumpless reset from the measured state, gc off.
         cycle.apply(Transition(State.IDLE, State.BALANCE, Output.OFF, Output.CONTROL, "bench"))
         write, fd, frames, on_readable = os.write, self.peer.fileno(), self.frames, cycle.on_readable
