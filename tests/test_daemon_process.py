@@ -73,6 +73,7 @@ async def sim_and_daemon(config, socket_path: str, where: tuple[str, ...] = ("--
     daemon = None
     try:
         daemon, client = await start_daemon(config, address, socket_path)
+        await take_into_use(client)
         yield address, daemon, client
     finally:
         if daemon is not None and daemon.returncode is None:
@@ -96,6 +97,15 @@ async def wait_for_state(client: ApiClient, *states: str, timeout_s: float = 60.
                 return status
             assert status["state"] not in ("FAULT", "ESTOP"), status["faults"]
             await asyncio.sleep(0.05)  # polling a remote daemon's status, as a CLI user would
+
+
+async def take_into_use(client: ApiClient) -> None:
+    """The operator's reset of a just powered-up rig: the daemon comes up in FAULT showing the
+    rig's F_RESET (PROTOCOL.md §9.1) and is IDLE once reset."""
+    status = await client.request("status")  # served only after the handshake
+    assert (status["state"], [f["name"] for f in status["faults"]]) == ("FAULT", ["device.reset"])
+    await client.request("reset")
+    await wait_for_state(client, "IDLE", timeout_s=10.0)
 
 
 async def ready(client: ApiClient) -> None:
