@@ -44,6 +44,9 @@ def one_run(index: int) -> tuple[bool, list[str]]:
     print(f"run {index}: {'pass' if passed else 'FAIL'} ({summary})")
     for line in figures:
         print(f"    {line}")
+    for line in result.stdout.splitlines():
+        if line.startswith(("FAILED", "E   ")):
+            print(f"    {line[:200]}")
     return passed, figures
 
 

@@ -107,6 +107,7 @@ def test_the_readme_demo_homes_swings_up_and_balances_with_the_dashboard_attache
         )
         terminal.keys("c")  # the operator's reset takes the just powered-up rig into use
         wait_state("IDLE", limit_s=10.0, leaving="FAULT")
+        terminal.wait_for("next    h  home")  # the dashboard refuses keys its own view does not allow yet
         terminal.keys("h")
         terminal.wait_for("I understand")  # the safety caution, once per dashboard session
         terminal.keys("Enter")
