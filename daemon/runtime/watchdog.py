@@ -50,7 +50,10 @@ async def run_watchdog(
     tick_s = min(MAX_TICK_S, max(0.001, limits.link_timeout_s / 2.0))
     loop = asyncio.get_running_loop()
     due = loop.time() + tick_s
-    rate_samples, rate_t_s, rate_wall_s = cycle.samples + cycle.missed, cycle.t_s, loop.time()
+    # The rate's window opens at a sample, never before the first one: the device clock counts
+    # from its power-up (PROTOCOL.md section 6), so a window from the cycle's initial t_s = 0
+    # would divide a few samples by the device's whole uptime.
+    window: tuple[int, float, float] | None = None  # (samples + missed, device t_s, wall s)
     while True:
         await asyncio.sleep(max(0.0, due - loop.time()))
         now = loop.time()
@@ -58,6 +61,7 @@ async def run_watchdog(
         due = now + tick_s
         lag.note(late_s)
         if not expecting() or not cycle.telemetry_flowing:
+            window = None
             continue
         pacing = cycle.pacing
         if late_s > pacing.stall_limit_s:
@@ -80,10 +84,14 @@ async def run_watchdog(
         if trip is not None:
             on_trip(trip)
             continue
+        count = cycle.samples + cycle.missed
+        if window is None:
+            window = (count, cycle.t_s, now)
+            continue
+        rate_samples, rate_t_s, rate_wall_s = window
         if now - rate_wall_s >= RATE_WINDOW_S and cycle.t_s > rate_t_s:
-            count = cycle.samples + cycle.missed
             rate_hz = (count - rate_samples) / (cycle.t_s - rate_t_s)
-            rate_samples, rate_t_s, rate_wall_s = count, cycle.t_s, now
+            window = (count, cycle.t_s, now)
             tm = cycle.last_telemetry
             supervisor.note_link(rate_hz, bool(tm is not None and tm.status & ST_WATCHDOG_ACTIVE))
             rate_known.set()
