@@ -124,7 +124,9 @@ class SimulatedDevice:
 
     ``sim_time_us`` counts simulated time since the simulator started and is
     never reset; fault events are scheduled on it. The device's own time
-    (Telemetry.t_us) restarts at a device reset.
+    (Telemetry.t_us) restarts at a device reset. ``uptime_us`` is how long the device
+    had been powered up when the simulator started (its first t_us): real firmware counts
+    t_us from power-up, usually long before the host's Configure (PROTOCOL.md section 6).
 
     Each sample interval is integrated in the fewest RK4 sub-steps that keep
     every step at or below ``max_step_us`` (set on each accepted Configure).
@@ -139,9 +141,13 @@ class SimulatedDevice:
         clock: SampleClock,
         schedule: FaultSchedule,
         max_step_us: int = 1000,
+        uptime_us: int = 0,
     ):
         if max_step_us < 1:
             raise ValueError(f"max_step_us must be >= 1 (got {max_step_us!r})")
+        if not 0 <= uptime_us < 1 << 63:
+            raise ValueError(f"uptime_us must be 0 .. 2**63 - 1 (got {uptime_us!r})")
+        self._uptime_us = uptime_us
         self.max_step_us = max_step_us
         self.identity = identity
         self.plant = plant
@@ -170,6 +176,7 @@ class SimulatedDevice:
         self._base_status = ST_WATCHDOG_ACTIVE | (ST_LOCKSTEP if clock.lockstep else 0)
 
         self._power_up()
+        self.t_us = uptime_us
 
     # -- life cycle ----------------------------------------------------------------
 
