@@ -62,6 +62,7 @@ from protocol.messages import (
     SW_ESTOP_BUTTON,
     SW_LIMIT_NEG,
     SW_LIMIT_POS,
+    UNPROMPTED_HELLO_SEQ,
     Arm,
     ClearFaults,
     Configure,
@@ -255,8 +256,9 @@ class SimulatedDevice:
             capabilities,
         )
 
-    def _hello(self) -> DeviceHello:
-        return DeviceHello(self._next_seq(DeviceHello), *self._hello_fields)
+    def _hello(self, seq: int = UNPROMPTED_HELLO_SEQ) -> DeviceHello:
+        """The hello: ``seq`` is the answered Identify's, or the unprompted hello's (section 6)."""
+        return DeviceHello(seq, *self._hello_fields)
 
     def _reply(self, command: Message, result: ReplyResult) -> None:
         self._answer(command.TYPE_ID, command.seq, result)
@@ -323,7 +325,7 @@ class SimulatedDevice:
             self.faults &= F_ESTOP if self.estop_pressed else 0
             self._reply(message, ReplyResult.FAULT_LATCHED if self.faults else ReplyResult.ACCEPTED)
         elif kind is Identify:
-            self._send(encode(self._hello()))
+            self._send(encode(self._hello(message.seq)))
         else:
             self._reply(message, ReplyResult.UNKNOWN_TYPE)  # a device-to-host message sent to us
 

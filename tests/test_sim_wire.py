@@ -203,6 +203,16 @@ async def test_handshake_then_telemetry_at_the_configured_rate(kind):
     assert samples[0].faults == p.F_RESET  # latched since power-up until ClearFaults
 
 
+async def test_device_hello_carries_the_seq_of_the_identify_it_answers():
+    """PROTOCOL.md section 6 (1.1): the hello answering an Identify repeats that Identify's
+    seq, and the hello sent unprompted at power-up carries UNPROMPTED_HELLO_SEQ."""
+    async with connect("pipe") as (_rig, host):
+        unprompted = await host.expect(p.DeviceHello)
+        answers = [await host.request(p.Identify(seq), p.DeviceHello, lambda m: True) for seq in (7, 0, 0xFFFE)]
+    assert unprompted.seq == p.UNPROMPTED_HELLO_SEQ
+    assert [hello.seq for hello in answers] == [7, 0, 0xFFFE]
+
+
 @pytest.mark.parametrize("kind", TRANSPORTS)
 async def test_silent_host_trips_the_watchdog_in_real_time(kind):
     async with connect(kind) as (_rig, host):
@@ -410,7 +420,7 @@ async def test_device_reset_says_hello_again_and_restarts_its_counters(kind):
         _hello, first = await handshake(host, 500, 200)
         assert (await host.command(p.ClearFaults(2))).result == p.ReplyResult.ACCEPTED
         host.answer_every_sample(first)
-        await host.expect(p.DeviceHello, lambda h: h.seq == 0)  # the hello counter restarted
+        await host.expect(p.DeviceHello, lambda h: h.seq == p.UNPROMPTED_HELLO_SEQ)  # unprompted
         host.on_telemetry = None
         before = [m for m in host.seen if type(m) is p.Telemetry]
         refused = await host.command(p.Arm(3, 1))  # not configured after a reset
