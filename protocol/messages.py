@@ -54,6 +54,11 @@ DRIVE_KIND_VOLTS = 0
 DRIVE_KIND_NEWTONS = 1
 
 
+UNPROMPTED_HELLO_SEQ = 0xFFFF
+"""Header seq of a DeviceHello sent unprompted (after power-up or reset); a DeviceHello that
+answers an Identify carries that Identify's seq instead (PROTOCOL.md section 6)."""
+
+
 class ReplyResult(IntEnum):
     """Reply.result codes."""
 

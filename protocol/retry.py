@@ -56,16 +56,19 @@ class RetryTracker:
     def resolve(self, answer: Message) -> Message | None:
         """Match a Reply (or a DeviceHello, which answers Identify); return the command answered.
 
-        Returns None when ``answer`` answers nothing pending (a late duplicate, or another type).
+        A Reply names the command in ``for_type``/``for_seq``; a DeviceHello answering an
+        Identify carries that Identify's seq in its header (PROTOCOL.md section 6). Returns
+        None when ``answer`` answers nothing pending (a late duplicate, an unprompted hello,
+        or another type).
         """
         if isinstance(answer, Reply):
-            entry = self._pending.pop((answer.for_type, answer.for_seq), None)
-            return entry.command if entry is not None else None
-        if isinstance(answer, DeviceHello):
-            identifies = [key for key in self._pending if key[0] == Identify.TYPE_ID]
-            answered = [self._pending.pop(key).command for key in identifies]
-            return answered[0] if answered else None
-        return None
+            key = (answer.for_type, answer.for_seq)
+        elif isinstance(answer, DeviceHello):
+            key = (Identify.TYPE_ID, answer.seq)
+        else:
+            return None
+        entry = self._pending.pop(key, None)
+        return entry.command if entry is not None else None
 
     def poll(self, now_s: float) -> RetryDue:
         """Commands whose deadline has passed: resend while attempts remain, else give up."""

@@ -62,6 +62,7 @@ from protocol.messages import (
     SW_ESTOP_BUTTON,
     SW_LIMIT_NEG,
     SW_LIMIT_POS,
+    UNPROMPTED_HELLO_SEQ,
     Arm,
     ClearFaults,
     Configure,
@@ -124,7 +125,9 @@ class SimulatedDevice:
 
     ``sim_time_us`` counts simulated time since the simulator started and is
     never reset; fault events are scheduled on it. The device's own time
-    (Telemetry.t_us) restarts at a device reset.
+    (Telemetry.t_us) restarts at a device reset. ``uptime_us`` is how long the device
+    had been powered up when the simulator started (its first t_us): real firmware counts
+    t_us from power-up, usually long before the host's Configure (PROTOCOL.md section 6).
 
     Each sample interval is integrated in the fewest RK4 sub-steps that keep
     every step at or below ``max_step_us`` (set on each accepted Configure).
@@ -139,9 +142,13 @@ class SimulatedDevice:
         clock: SampleClock,
         schedule: FaultSchedule,
         max_step_us: int = 1000,
+        uptime_us: int = 0,
     ):
         if max_step_us < 1:
             raise ValueError(f"max_step_us must be >= 1 (got {max_step_us!r})")
+        if not 0 <= uptime_us < 1 << 63:
+            raise ValueError(f"uptime_us must be 0 .. 2**63 - 1 (got {uptime_us!r})")
+        self._uptime_us = uptime_us
         self.max_step_us = max_step_us
         self.identity = identity
         self.plant = plant
@@ -170,6 +177,7 @@ class SimulatedDevice:
         self._base_status = ST_WATCHDOG_ACTIVE | (ST_LOCKSTEP if clock.lockstep else 0)
 
         self._power_up()
+        self.t_us = uptime_us
 
     # -- life cycle ----------------------------------------------------------------
 
@@ -248,8 +256,9 @@ class SimulatedDevice:
             capabilities,
         )
 
-    def _hello(self) -> DeviceHello:
-        return DeviceHello(self._next_seq(DeviceHello), *self._hello_fields)
+    def _hello(self, seq: int = UNPROMPTED_HELLO_SEQ) -> DeviceHello:
+        """The hello: ``seq`` is the answered Identify's, or the unprompted hello's (section 6)."""
+        return DeviceHello(seq, *self._hello_fields)
 
     def _reply(self, command: Message, result: ReplyResult) -> None:
         self._answer(command.TYPE_ID, command.seq, result)
@@ -316,7 +325,7 @@ class SimulatedDevice:
             self.faults &= F_ESTOP if self.estop_pressed else 0
             self._reply(message, ReplyResult.FAULT_LATCHED if self.faults else ReplyResult.ACCEPTED)
         elif kind is Identify:
-            self._send(encode(self._hello()))
+            self._send(encode(self._hello(message.seq)))
         else:
             self._reply(message, ReplyResult.UNKNOWN_TYPE)  # a device-to-host message sent to us
 

@@ -68,7 +68,8 @@ class SimulatedRig:
     ``lockstep`` takes one sample per drive command (deterministic; real-time
     pacing resumes after ``lockstep_grace_s`` of host silence); otherwise the
     rig samples on the wall clock. ``seed`` fixes every random draw (sensor
-    noise, jitter, line faults, switch chatter).
+    noise, jitter, line faults, switch chatter). ``uptime_us`` is the device clock's
+    reading when the rig starts (time since its power-up).
     """
 
     def __init__(
@@ -80,6 +81,7 @@ class SimulatedRig:
         seed: int = 0,
         faults: FaultPlan = NO_FAULTS,
         lockstep_grace_s: float = 0.5,
+        uptime_us: int = 0,
     ):
         self.spec = spec
         self.faults = faults
@@ -99,6 +101,7 @@ class SimulatedRig:
             self.clock,
             FaultSchedule(faults, seed),
             max_step_us=round(spec.max_integration_step_s * 1e6),
+            uptime_us=uptime_us,
         )
 
     def start(self, loop: asyncio.AbstractEventLoop | None = None) -> None:

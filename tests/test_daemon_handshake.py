@@ -7,7 +7,7 @@ import os
 import tty
 
 import pytest
-from test_daemon_support import rig_config_text
+from test_daemon_support import reset_to_idle, rig_config_text
 
 from daemon.config import parse_config
 from daemon.errors import OperatorError
@@ -78,3 +78,25 @@ async def test_a_port_that_cannot_be_opened_is_one_line_naming_it(tmp_path):
                            serve_api=False)
     with pytest.raises(OperatorError, match="cannot open rig port .*no-such-tty"):
         await service.start()
+
+
+
+@pytest.mark.parametrize("lockstep", [True, False])
+async def test_a_rig_powered_up_minutes_before_configure_is_accepted_and_homes(tmp_path, lockstep):
+    """PROTOCOL.md section 6: Telemetry.t_us counts from the device's power-up, not from
+    Configure. The host measures the telemetry rate from the stream itself (t_us deltas once
+    telemetry flows), so a rig that has been on for minutes passes the link.rate pre-check from
+    the first rate it reports (the one the service waits for before it takes commands).
+    Source: the protocol's own definition of t_us; an uptime clock is common practice."""
+    from test_daemon_support import homed_and_ready, running_service
+
+    five_minutes_us = 5 * 60 * 1_000_000
+    async with running_service(
+        tmp_path, uptime_us=five_minutes_us, lockstep=lockstep, power_up_reset=False
+    ) as service:
+        configured_hz = service.config.sampling.rate_hz
+        first_hz = service.supervisor.link_rate_hz
+        assert abs(first_hz - configured_hz) < 0.05 * configured_hz, (first_hz, configured_hz)
+        assert service.cycle.last_telemetry.t_us > five_minutes_us
+        await reset_to_idle(service)
+        await homed_and_ready(service)

@@ -65,7 +65,7 @@ async def running_service(
     tmp_path: Path, *, base: Path = KESTREL, extra: str = "", faults: FaultPlan | None = None,
     serve_api: bool = False, lockstep: bool = True, edits: dict[str, str] | None = None,
     supply_v: float | None = None, encoder_noise_counts: float = 0.0, link: RigLink = "pty",
-    api: str = "", power_up_reset: bool = True,
+    api: str = "", power_up_reset: bool = True, uptime_us: int = 0,
 ) -> AsyncIterator[PoiseService]:
     """The daemon on the built-in simulated rig; ``supply_v`` fits the rig a supply measurement.
 
@@ -79,7 +79,7 @@ async def running_service(
     text = rig_config_text(tmp_path, base, extra, edits, api)
     options = SimOptions(
         lockstep=lockstep, faults=faults or FaultPlan(), supply_v=supply_v,
-        encoder_noise_counts=encoder_noise_counts, link=link,
+        encoder_noise_counts=encoder_noise_counts, link=link, uptime_us=uptime_us,
     )
     service = PoiseService(parse_config(text), text, sim=options, serve_api=serve_api)
     await service.start()

@@ -11,6 +11,7 @@ from daemon.link.link import Link
 from protocol import (
     PROTOCOL_VERSION,
     SCHEMA_FINGERPRINT,
+    UNPROMPTED_HELLO_SEQ,
     Arm,
     Configure,
     Drive,
@@ -147,6 +148,24 @@ def test_link_stats_keep_the_last_100_frames_each_way():
     peer.close()
 
 
+async def test_the_host_keeps_one_seq_counter_per_command_type():
+    """PROTOCOL.md section 5: every sender keeps a separate u16 counter per message type."""
+    stats = LinkStats(clock=_stepping_clock())
+    link, peer = _writing_link(stats)
+    for make in (Identify, lambda seq: Arm(seq, 1), Stop, lambda seq: Arm(seq, 0), Stop):
+        link.send(make)
+    link.send_unacked(Heartbeat)
+    link.send_unacked(Heartbeat)
+    sent = FrameDecoder().feed(peer.recv(4096))
+    link.fail_pending("test over")
+    os.close(link.fd)
+    peer.close()
+    assert [(type(m).__name__, m.seq) for m in sent] == [
+        ("Identify", 0), ("Arm", 0), ("Stop", 0), ("Arm", 1), ("Stop", 1), ("Heartbeat", 0),
+        ("Heartbeat", 1),
+    ]
+
+
 def test_dump_lists_frames_in_time_order_as_wire_hex_then_errors():
     stats = LinkStats(clock=_stepping_clock())
     decoder = FrameDecoder(stats)
@@ -200,10 +219,15 @@ def test_reply_resolves_only_the_command_it_names():
     assert tracker.poll(0.1).resend == [arm]
 
 
-def test_device_hello_resolves_a_pending_identify():
+def test_device_hello_resolves_the_identify_whose_seq_it_carries():
+    """PROTOCOL.md section 6: a DeviceHello answering an Identify carries its seq; an
+    unprompted hello (seq 0xFFFF, after a device reset) answers nothing."""
     tracker = RetryTracker(timeout_s=0.1, max_attempts=2)
     tracker.track(Identify(seq=3), 0.0)
-    assert tracker.resolve(HELLO) == Identify(seq=3)
+    assert tracker.resolve(HELLO._replace(seq=2)) is None  # a late answer to an older Identify
+    assert tracker.resolve(HELLO._replace(seq=UNPROMPTED_HELLO_SEQ)) is None
+    assert tracker.pending == [Identify(seq=3)]
+    assert tracker.resolve(HELLO._replace(seq=3)) == Identify(seq=3)
     assert tracker.pending == []
 
 

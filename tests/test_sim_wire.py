@@ -203,6 +203,27 @@ async def test_handshake_then_telemetry_at_the_configured_rate(kind):
     assert samples[0].faults == p.F_RESET  # latched since power-up until ClearFaults
 
 
+async def test_device_hello_carries_the_seq_of_the_identify_it_answers():
+    """PROTOCOL.md section 6 (1.1): the hello answering an Identify repeats that Identify's
+    seq, and the hello sent unprompted at power-up carries UNPROMPTED_HELLO_SEQ."""
+    async with connect("pipe") as (_rig, host):
+        unprompted = await host.expect(p.DeviceHello)
+        answers = [await host.request(p.Identify(seq), p.DeviceHello, lambda m: True) for seq in (7, 0, 0xFFFE)]
+    assert unprompted.seq == p.UNPROMPTED_HELLO_SEQ
+    assert [hello.seq for hello in answers] == [7, 0, 0xFFFE]
+
+
+async def test_a_positive_drive_moves_the_cart_toward_positive_counts():
+    """PROTOCOL.md 1.1 section 6 (Drive): a positive drive pushes the cart toward +x, where
+    cart_counts increase."""
+    async with connect("pipe", lockstep=True) as (_rig, host):
+        _hello, first = await handshake(host, 500, 200)
+        assert (await host.command(p.ClearFaults(2))).result == p.ReplyResult.ACCEPTED
+        assert (await host.command(p.Arm(3, 1))).result == p.ReplyResult.ACCEPTED
+        samples = await run_lockstep(host, first, first.seq + 100, drive=3.0)
+    assert samples[-1].drive_applied == 3.0 and samples[-1].cart_counts > 100
+
+
 @pytest.mark.parametrize("kind", TRANSPORTS)
 async def test_silent_host_trips_the_watchdog_in_real_time(kind):
     async with connect(kind) as (_rig, host):
@@ -305,7 +326,11 @@ async def test_commands_refused_in_the_wrong_state(kind):
         cleared = await host.command(p.ClearFaults(5))
         armed = await host.command(p.Arm(6, 1))
         while_armed = await host.command(p.Configure(7, 250, 50))
+        armed_again = await host.command(p.Arm(8, 1))
+    # PROTOCOL.md 1.1 section 9.2: unconfigured and faulted (F_RESET at power-up) is NOT_NOW,
+    # Arm while armed is ACCEPTED.
     assert not_configured.result == p.ReplyResult.NOT_NOW
+    assert armed_again.result == p.ReplyResult.ACCEPTED
     assert too_fast.result == p.ReplyResult.OUT_OF_RANGE
     assert reset_latched.result == p.ReplyResult.FAULT_LATCHED
     assert bad_arm.result == p.ReplyResult.OUT_OF_RANGE
@@ -410,7 +435,7 @@ async def test_device_reset_says_hello_again_and_restarts_its_counters(kind):
         _hello, first = await handshake(host, 500, 200)
         assert (await host.command(p.ClearFaults(2))).result == p.ReplyResult.ACCEPTED
         host.answer_every_sample(first)
-        await host.expect(p.DeviceHello, lambda h: h.seq == 0)  # the hello counter restarted
+        await host.expect(p.DeviceHello, lambda h: h.seq == p.UNPROMPTED_HELLO_SEQ)  # unprompted
         host.on_telemetry = None
         before = [m for m in host.seen if type(m) is p.Telemetry]
         refused = await host.command(p.Arm(3, 1))  # not configured after a reset

@@ -74,7 +74,7 @@ class Link:
         "_on_fault_report",
         "_on_write_error",
         "_retry",
-        "_seq",
+        "_seqs",
         "decoder",
         "device_resets",
         "fd",
@@ -111,7 +111,7 @@ class Link:
         self._heartbeat_after_s = watchdog_ms / 3000.0
         self._frames_tx_at_check = -1
         self._next_heartbeat_check_s = 0.0
-        self._seq = 0
+        self._seqs: dict[int, int] = {}  # next header seq per message type (PROTOCOL.md section 5)
         self._retry = RetryTracker(RETRY_TIMEOUT_S, MAX_ATTEMPTS)
         self._answers: dict[tuple[int, int], asyncio.Future[Message]] = {}
         self._on_device_reset = on_device_reset
@@ -146,17 +146,21 @@ class Link:
         stats.tx_frames.append((t_ns, frame, size))  # as sent: delimiter included
         return t_ns
 
-    def _next_seq(self) -> int:
-        seq = self._seq
-        self._seq = (seq + 1) & 0xFFFF
-        return seq
+    def _next_seq(self, make: Callable[[int], Message]) -> Message:
+        """``make`` called with the next seq of its message type: one counter per type, from 0.
+
+        (The control cycle numbers its Drive frames itself.)"""
+        command = make(0)
+        seq = self._seqs.get(command.TYPE_ID, 0)
+        self._seqs[command.TYPE_ID] = (seq + 1) & 0xFFFF
+        return command._replace(seq=seq)
 
     def send(self, make: Callable[[int], Message]) -> asyncio.Future[Message]:
         """Send an acknowledged command built by ``make(seq)``; the future gets its answer.
 
         The future fails with :class:`LinkDown` when every attempt went unanswered.
         """
-        command = make(self._next_seq())
+        command = self._next_seq(make)
         future: asyncio.Future[Message] = asyncio.get_running_loop().create_future()
         self._answers[(command.TYPE_ID, command.seq)] = future
         self._retry.track(command, self._clock())
@@ -165,7 +169,7 @@ class Link:
 
     def send_unacked(self, make: Callable[[int], Message]) -> None:
         """Send a command nobody answers (Heartbeat)."""
-        self.write(encode(make(self._next_seq())))
+        self.write(encode(self._next_seq(make)))
 
     async def request(self, make: Callable[[int], Message]) -> Message:
         """Send an acknowledged command and wait for its answer (with retries)."""

@@ -40,7 +40,8 @@ class SimOptions:
 
     ``supply_v`` fits the rig with a supply voltage measurement reading that voltage;
     ``encoder_noise_counts`` is the Gaussian noise on both encoders (seeded by ``seed``);
-    ``link`` is what the rig sits on.
+    ``link`` is what the rig sits on; ``uptime_us`` is how long the rig's device had been
+    powered up before the daemon met it (its Telemetry.t_us counts from power-up).
     """
 
     lockstep: bool = False
@@ -49,6 +50,7 @@ class SimOptions:
     supply_v: float | None = None
     encoder_noise_counts: float = BUILT_IN_NOISE_COUNTS
     link: RigLink = "pty"
+    uptime_us: int = 0
 
 
 @dataclass(frozen=True)
@@ -76,6 +78,7 @@ def start_embedded_rig(
         lockstep=options.lockstep,
         seed=options.seed,
         faults=options.faults,
+        uptime_us=options.uptime_us,
     )
     rig.start(loop)
     return EmbeddedRig(rig, opener)

@@ -35,6 +35,41 @@ RATE_WINDOW_S = 0.1
 MAX_TICK_S = 0.01  # the lag is sampled at least this often
 
 
+class RateMeter:
+    """The telemetry rate, from rig-time deltas of the stream itself.
+
+    Telemetry.t_us counts from the device's power-up (PROTOCOL.md section 6), usually long
+    before this host's Configure, so no rate may be measured against rig time 0: the first
+    window starts at the first observation made while telemetry flows, and a new one starts
+    whenever the stream stops flowing (a reconnect).
+    """
+
+    __slots__ = ("_count", "_t_s", "_wall_s")
+
+    def __init__(self) -> None:
+        self._count = 0
+        self._t_s: float | None = None  # None: no window open
+        self._wall_s = 0.0
+
+    def restart(self) -> None:
+        """Telemetry is not flowing (not yet, or lost): the next observation opens a window."""
+        self._t_s = None
+
+    def observe(self, wall_s: float, count: int, t_s: float) -> float | None:
+        """The rate over the window that ends now, or None while no full window has passed.
+
+        ``count`` is samples received plus samples lost, ``t_s`` the latest sample's rig time;
+        call only while telemetry flows."""
+        if self._t_s is None:
+            self._count, self._t_s, self._wall_s = count, t_s, wall_s
+            return None
+        if wall_s - self._wall_s < RATE_WINDOW_S or t_s <= self._t_s:
+            return None
+        rate_hz = (count - self._count) / (t_s - self._t_s)
+        self._count, self._t_s, self._wall_s = count, t_s, wall_s
+        return rate_hz
+
+
 async def run_watchdog(
     cycle: ControlCycle,
     supervisor: Supervisor,
@@ -50,10 +85,7 @@ async def run_watchdog(
     tick_s = min(MAX_TICK_S, max(0.001, limits.link_timeout_s / 2.0))
     loop = asyncio.get_running_loop()
     due = loop.time() + tick_s
-    # The rate's window opens at a sample, never before the first one: the device clock counts
-    # from its power-up (PROTOCOL.md section 6), so a window from the cycle's initial t_s = 0
-    # would divide a few samples by the device's whole uptime.
-    window: tuple[int, float, float] | None = None  # (samples + missed, device t_s, wall s)
+    meter = RateMeter()
     while True:
         await asyncio.sleep(max(0.0, due - loop.time()))
         now = loop.time()
@@ -61,7 +93,7 @@ async def run_watchdog(
         due = now + tick_s
         lag.note(late_s)
         if not expecting() or not cycle.telemetry_flowing:
-            window = None
+            meter.restart()
             continue
         pacing = cycle.pacing
         if late_s > pacing.stall_limit_s:
@@ -84,14 +116,8 @@ async def run_watchdog(
         if trip is not None:
             on_trip(trip)
             continue
-        count = cycle.samples + cycle.missed
-        if window is None:
-            window = (count, cycle.t_s, now)
-            continue
-        rate_samples, rate_t_s, rate_wall_s = window
-        if now - rate_wall_s >= RATE_WINDOW_S and cycle.t_s > rate_t_s:
-            rate_hz = (count - rate_samples) / (cycle.t_s - rate_t_s)
-            window = (count, cycle.t_s, now)
+        rate_hz = meter.observe(now, cycle.samples + cycle.missed, cycle.t_s)
+        if rate_hz is not None:
             tm = cycle.last_telemetry
             supervisor.note_link(rate_hz, bool(tm is not None and tm.status & ST_WATCHDOG_ACTIVE))
             rate_known.set()
