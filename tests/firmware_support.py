@@ -20,17 +20,18 @@ SANITIZE = ("-fsanitize=address,undefined", "-fno-sanitize-recover=all")
 
 
 @functools.cache
-def build(program: str, sanitize: bool = False) -> Path:
+def build(program: str, sanitize: bool = False, device: bool = False) -> Path:
     """Compile firmware/tests/<program>.c with the portable core and return the executable.
 
-    Skips the test when gcc is not installed; a compile error fails it with gcc's output.
+    The codec alone needs no hardware port; ``device`` adds the state machine (device.c),
+    whose port functions the program must then define. Skips the test when gcc is not installed; a compile error fails it with gcc's output.
     """
     gcc = shutil.which("gcc")
     if gcc is None:
         pytest.skip("gcc is not installed")
     out_dir = Path(tempfile.mkdtemp(prefix=f"poise-fw-{program}-"))
     exe = out_dir / program
-    sources = sorted(str(p) for p in CORE.glob("*.c"))
+    sources = sorted(str(p) for p in CORE.glob("*.c") if device or p.name != "device.c")
     command = [
         gcc, *C_FLAGS, *(SANITIZE if sanitize else ()), f"-I{CORE}",
         *sources, str(FIRMWARE / "tests" / f"{program}.c"), "-lm", "-o", str(exe),

@@ -107,7 +107,7 @@ def _c_core() -> tuple[list[list[tuple]], list[int]]:
             lines.append(f"estop {int(step[1])}")
         else:
             lines.append("rx " + step.hex())
-    out = run(build("device_driver"), "\n".join(lines) + "\n", args=(str(POWERED_UP_BEFORE_US),))
+    out = run(build("device_driver", device=True), "\n".join(lines) + "\n", args=(str(POWERED_UP_BEFORE_US),))
     blocks, current, t_us = [], [], []
     for line in out.splitlines():
         if line == "end":
