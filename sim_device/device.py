@@ -148,7 +148,6 @@ class SimulatedDevice:
             raise ValueError(f"max_step_us must be >= 1 (got {max_step_us!r})")
         if not 0 <= uptime_us < 1 << 63:
             raise ValueError(f"uptime_us must be 0 .. 2**63 - 1 (got {uptime_us!r})")
-        self._uptime_us = uptime_us
         self.max_step_us = max_step_us
         self.identity = identity
         self.plant = plant

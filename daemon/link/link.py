@@ -146,7 +146,7 @@ class Link:
         stats.tx_frames.append((t_ns, frame, size))  # as sent: delimiter included
         return t_ns
 
-    def _next_seq(self, make: Callable[[int], Message]) -> Message:
+    def _numbered(self, make: Callable[[int], Message]) -> Message:
         """``make`` called with the next seq of its message type: one counter per type, from 0.
 
         (The control cycle numbers its Drive frames itself.)"""
@@ -160,7 +160,7 @@ class Link:
 
         The future fails with :class:`LinkDown` when every attempt went unanswered.
         """
-        command = self._next_seq(make)
+        command = self._numbered(make)
         future: asyncio.Future[Message] = asyncio.get_running_loop().create_future()
         self._answers[(command.TYPE_ID, command.seq)] = future
         self._retry.track(command, self._clock())
@@ -169,7 +169,7 @@ class Link:
 
     def send_unacked(self, make: Callable[[int], Message]) -> None:
         """Send a command nobody answers (Heartbeat)."""
-        self.write(encode(self._next_seq(make)))
+        self.write(encode(self._numbered(make)))
 
     async def request(self, make: Callable[[int], Message]) -> Message:
         """Send an acknowledged command and wait for its answer (with retries)."""
