@@ -13,7 +13,7 @@ from pathlib import Path
 
 from daemon.config import load_config
 from daemon.config.plant import rig_spec
-from protocol import FrameDecoder, encode
+from protocol import UNPROMPTED_HELLO_SEQ, FrameDecoder, encode
 from protocol.messages import (
     F_ESTOP,
     F_RESET,
@@ -184,7 +184,7 @@ def test_c_core_answers_the_script_as_the_simulator_does() -> None:
     c_blocks, _t_us = _c_core()
     py_blocks = _python_sim()
     assert len(c_blocks) == len(SCRIPT) + 1  # the power-up hello, then one block per step
-    assert c_blocks[0] == [("DeviceHello", 0)]
+    assert c_blocks[0] == [("DeviceHello", UNPROMPTED_HELLO_SEQ)]
     for index, (step, c_out, py_out) in enumerate(zip(SCRIPT, c_blocks[1:], py_blocks)):
         assert c_out == py_out, f"step {index} ({step!r:.60}): C {c_out} != Python {py_out}"
 

@@ -13,13 +13,14 @@ static void send(poise_device *d, const pw_message *m)
         d->tx_dropped++;
 }
 
-static void send_hello(poise_device *d)
+/* seq: the Identify's it answers, or PW_UNPROMPTED_HELLO_SEQ after power-up (section 6). */
+static void send_hello(poise_device *d, uint16_t seq)
 {
     pw_message m;
     pw_device_hello *h = &m.u.hello;
     memset(&m, 0, sizeof m);
     m.type = PW_DEVICE_HELLO;
-    m.seq = d->hello_seq++;
+    m.seq = seq;
     h->protocol_version = PW_VERSION;
     h->schema_fingerprint = PW_SCHEMA_FINGERPRINT;
     memcpy(h->device_id, d->id.device_id, strlen(d->id.device_id));
@@ -89,7 +90,7 @@ void poise_device_init(poise_device *d, const poise_identity *id)
     d->estop_was_pressed = (id->capabilities & CAP_ESTOP_BUTTON) && port_estop_pressed();
     d->faults = (uint16_t)(F_RESET | (d->estop_was_pressed ? F_ESTOP : 0u));
     d->sample_seq = -1;
-    send_hello(d);
+    send_hello(d, PW_UNPROMPTED_HELLO_SEQ);
 }
 
 /* Clamp to +-drive_limit; NaN or infinite counts as 0 (section 6, Drive). */
@@ -173,7 +174,7 @@ static void on_message(poise_device *d, const pw_message *m, uint64_t now)
     case PW_ARM: on_arm(d, m); break;
     case PW_STOP: cut_drive(d); reply(d, m->type, m->seq, PW_ACCEPTED); break;
     case PW_CLEAR_FAULTS: on_clear_faults(d, m); break;
-    case PW_IDENTIFY: send_hello(d); break;
+    case PW_IDENTIFY: send_hello(d, m->seq); break;
     default: reply(d, m->type, m->seq, PW_UNKNOWN_TYPE); break; /* a device-to-host type */
     }
 }

@@ -40,7 +40,7 @@ typedef struct {
     float drive_output, pending_drive;
     uint16_t late_commands;
     int32_t sample_seq; /* -1 before the first sample of a stream */
-    uint16_t hello_seq, reply_seq, fault_seq;
+    uint16_t reply_seq, fault_seq;
     uint32_t tx_dropped; /* frames the serial port could not take whole */
 } poise_device;
 

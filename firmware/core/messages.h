@@ -13,6 +13,7 @@
 #define PW_MAX_FRAME 254u         /* decoded frame */
 #define PW_MAX_ENCODED 255u       /* its COBS encoding, before the 0x00 delimiter */
 #define PW_FLAGS_MUST_UNDERSTAND 0x0Fu
+#define PW_UNPROMPTED_HELLO_SEQ 0xFFFFu /* a DeviceHello nobody asked for (section 6) */
 #define PW_KNOWN_MUST_UNDERSTAND 0x00u
 #define PW_DEVICE_ID_BYTES 16u
 
