@@ -33,12 +33,14 @@ drive bounds the stop.
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
 from daemon.supervisor.stop_ramp import FOLLOWER_ACCEL_FACTOR, stop_lag_s
-from sim_device.plant import PlantParams, state_derivative
+from sim_device.drive import drive_gains, effective_command
+from sim_device.plant import PlantParams, acceleration_function
 
 if TYPE_CHECKING:
     from daemon.config import PoiseConfig
@@ -57,20 +59,27 @@ _EXTRA_RATE_RADPS = math.radians(20.0)
 GRID_MARGIN = 0.02  # share of the grid's weakest braking not counted on
 
 
+@functools.lru_cache(maxsize=64)
 def weakest_braking_mps2(params: PlantParams, max_cart_speed_mps: float) -> tuple[float, tuple]:
-    """The least deceleration at the drive limit over the states above, and the state it occurs in."""
+    """The least deceleration at the drive limit over the states above, and the state it occurs in.
+
+    Cached: a config is checked where it loads, where the daemon starts and in ``poise design``,
+    and the plant parameters are frozen, so the same rig gives the same grid.
+    """
     ml_g = params.pendulum_mass_kg * params.com_distance_m * params.gravity_mps2
     speeds = [v for v in (1e-3, 0.1, 0.5, 1.0) if v < max_cart_speed_mps] + [max_cart_speed_mps]
+    accel = acceleration_function(params)  # built once: the grid has 2,700 states
+    f_rest = drive_gains(params.drive)[0] * effective_command(params.drive, -params.drive.limit)
     weakest, where = math.inf, (0.0, 0.0, 0.0, 0.0)
     for degrees in range(0, 360, 2):
         theta = math.radians(degrees)
-        rate = math.sqrt(2 * ml_g * (1 - math.cos(theta)) / params.pivot_inertia_kgm2) + _EXTRA_RATE_RADPS
+        sin_th, cos_th = math.sin(theta), math.cos(theta)
+        rate = math.sqrt(2 * ml_g * (1 - cos_th) / params.pivot_inertia_kgm2) + _EXTRA_RATE_RADPS
         for omega in (-rate, 0.0, rate):
             for v_mps in speeds:
-                state = (0.0, v_mps, theta, omega)
-                braking = -state_derivative(params, state, -params.drive.limit)[1]
+                braking = -accel(v_mps, sin_th, cos_th, omega, f_rest)[0]
                 if braking < weakest:
-                    weakest, where = braking, state
+                    weakest, where = braking, (0.0, v_mps, theta, omega)
     return weakest, where
 
 
