@@ -26,19 +26,29 @@ def build(program: str, sanitize: bool = False, device: bool = False) -> Path:
     The codec alone needs no hardware port; ``device`` adds the state machine (device.c),
     whose port functions the program must then define. Skips the test when gcc is not installed; a compile error fails it with gcc's output.
     """
+    sources = [p for p in CORE.glob("*.c") if device or p.name != "device.c"]
+    return _compile(program, [*sources, FIRMWARE / "tests" / f"{program}.c"], sanitize)
+
+
+@functools.cache
+def build_host_port() -> Path:
+    """The Linux host port (firmware/host): the whole core as a device on a pty, with its C model."""
+    return _compile("poise-fw-host", [*CORE.glob("*.c"), *(FIRMWARE / "host").glob("*.c")], False)
+
+
+def _compile(name: str, sources: list[Path], sanitize: bool) -> Path:
     gcc = shutil.which("gcc")
     if gcc is None:
         pytest.skip("gcc is not installed")
-    out_dir = Path(tempfile.mkdtemp(prefix=f"poise-fw-{program}-"))
-    exe = out_dir / program
-    sources = sorted(str(p) for p in CORE.glob("*.c") if device or p.name != "device.c")
+    out_dir = Path(tempfile.mkdtemp(prefix=f"poise-fw-{name}-"))
+    exe = out_dir / name
     command = [
         gcc, *C_FLAGS, *(SANITIZE if sanitize else ()), f"-I{CORE}",
-        *sources, str(FIRMWARE / "tests" / f"{program}.c"), "-lm", "-o", str(exe),
+        *sorted(str(p) for p in sources), "-lm", "-o", str(exe),
     ]
     result = subprocess.run(command, capture_output=True, text=True, check=False)
     if result.returncode != 0:
-        pytest.fail(f"building {program}.c failed:\n{result.stderr}")
+        pytest.fail(f"building {name} failed:\n{result.stderr}")
     return exe
 
 

@@ -10,41 +10,52 @@ until an operator reset (ISO 13850:2015, 5.5: resetting is a deliberate act
 and does not by itself start motion); after the reset motion is accepted. Each
 killed run must read ``aborted`` in `poise runs`, ending at its last stored
 sample. Lockstep keeps each restart cheap (about 80 s of rig time at many
-times real time): CI runs 8; the same test runs in real time, marked
+times real time): CI runs 5; the same test runs in real time, marked
 ``realtime``, once in CI (each life takes over a minute of wall time). Both
-take ``--restarts 20`` for the full trial.
+take ``--restarts 20`` for the full trial. The reference firmware's core (its
+host port, firmware/host, in lockstep) is killed under in the same way, three
+lives in CI: its watchdog's reaction is read from its own log, on its own
+clock, and must fall within watchdog_ms of the last command (plus the 0.1 ms
+its loop takes to check).
 """
 
 from __future__ import annotations
 
 import asyncio
-import contextlib
 import json
 import math
+import re
 import signal
 import sqlite3
-import sys
 from collections.abc import Callable
+from dataclasses import dataclass
 from pathlib import Path
 
 import pytest
+from rig_processes import (
+    POISE,
+    START_LIMIT_S,
+    RigProcess,
+    firmware_command,
+    rig_process,
+    simulator_command,
+)
 from test_daemon_support import KESTREL, write_rig_config
 
 from daemon.api.client import ApiClient, wait_for_daemon
-from daemon.errors import CommandRefused
 from daemon.config import load_config
 from daemon.control.encoders import wrap_angle
+from daemon.errors import CommandRefused
 from daemon.supervisor.prechecks import MOTION_COMMANDS, PrecheckLimits
 
-POISE = [sys.executable, "-m", "daemon.cli"]
 # Each lockstep life is about 80 s of rig time (settle, home, settle again, swing up), 9 s of wall
-# time: CI runs 8 to keep the suite inside its time; `--restarts 20` is the issue's full trial.
-LOCKSTEP_RESTARTS = 8
+# time: CI runs 5 to keep the suite inside its time; `--restarts 20` is the issue's full trial.
+LOCKSTEP_RESTARTS = 5
+FIRMWARE_RESTARTS = 3  # the firmware's lives, in lockstep (the Python simulator's cover the daemon's side)
 # Each real-time life settles, homes and swings up on the wall clock (about a minute), so CI runs
 # one; `pytest -m realtime tests/test_daemon_restart.py --restarts 20` is the full trial.
 REAL_TIME_RESTARTS = 1
 BALANCE_S = 0.5  # rig time balanced before each kill
-START_LIMIT_S = 60.0
 STEP_LIMIT_S = 120.0  # wall time for one step (homing, swing-up) in real time
 MOTION_ARGS = {"excite": {"kind": "chirp", "duration_s": 1.0}}
 # After each kill the pendulum falls and spins for minutes (Kestrel-1's pivot friction is tiny),
@@ -58,60 +69,10 @@ SETTLING_PIVOT = {"pivot_viscous_nms_per_rad": "0.003"}
 FASTER_CART = "[interlocks]\nmax_cart_speed_mps = 1.7\n"
 
 
-class SimProcess:
-    """`poise sim --pty` in its own process; its stderr lines (the faults it latches) to await."""
-
-    def __init__(self, process: asyncio.subprocess.Process, pty_path: str):
-        self.process = process
-        self.pty_path = pty_path
-        self.lines: asyncio.Queue[str] = asyncio.Queue()
-        self._reader = asyncio.create_task(self._read_stderr())
-
-    @classmethod
-    async def start(cls, config: Path, *options: str) -> SimProcess:
-        process = await asyncio.create_subprocess_exec(
-            *POISE, "sim", "--pty", "--config", str(config), *options,
-            stdout=asyncio.subprocess.PIPE, stderr=asyncio.subprocess.PIPE,
-        )
-        async with asyncio.timeout(START_LIMIT_S):
-            ready = (await process.stdout.readline()).decode()
-        return cls(process, ready.rsplit("connect to ", 1)[1].strip())
-
-    async def _read_stderr(self) -> None:
-        while line := await self.process.stderr.readline():
-            await self.lines.put(line.decode())
-
-    async def said(self, text: str) -> str:
-        """The next stderr line containing ``text``."""
-        async with asyncio.timeout(START_LIMIT_S):
-            while text not in (line := await self.lines.get()):
-                pass
-        return line
-
-    async def stop(self) -> str:
-        """SIGTERM; returns the line with its final counts."""
-        if self.process.returncode is None:
-            self.process.terminate()
-        line = await self.said("simulated rig stopped")
-        await self.process.wait()
-        return line
-
-
-@contextlib.asynccontextmanager
-async def simulator(config: Path, *options: str):
-    sim = await SimProcess.start(config, *options)
-    try:
-        yield sim
-    finally:
-        if sim.process.returncode is None:
-            sim.process.kill()
-            await sim.process.wait()
-
-
-async def start_daemon(config: Path, sim: SimProcess, log: Path) -> asyncio.subprocess.Process:
+async def start_daemon(config: Path, rig: RigProcess, log: Path) -> asyncio.subprocess.Process:
     with log.open("ab") as out:
         return await asyncio.create_subprocess_exec(
-            *POISE, "run", "--port", sim.pty_path, "--config", str(config),
+            *POISE, "run", "--port", rig.pty_path, "--config", str(config),
             stdin=asyncio.subprocess.DEVNULL, stdout=out, stderr=out,
         )
 
@@ -224,14 +185,41 @@ async def poise_runs(config: Path) -> list[dict]:
     return json.loads(out)
 
 
-async def kill_during_balance_and_restart(tmp_path: Path, restarts: int, *sim_options: str) -> None:
+@dataclass(frozen=True)
+class Rig:
+    """How to start one kind of rig, and how its log states the watchdog's reaction."""
+
+    command: Callable[[Path], list[str]]
+    reaction_ms: Callable[[str], float]  # from its "latched F_WATCHDOG" line: ms since the last feed
+    resolution_ms: float  # how often it checks its watchdog
+
+
+def simulator_reaction_ms(line: str) -> float:
+    return float(re.search(r"\(detail ([0-9.]+)\)", line).group(1))
+
+
+def firmware_reaction_ms(line: str) -> float:
+    """From firmware/host/main.c's log, on the firmware's own clock; the drive must read 0."""
+    found = re.search(r"at t_us (\d+) \(host last fed the watchdog at t_us (\d+); drive now (\S+)\)", line)
+    assert float(found.group(3)) == 0.0, line
+    return (int(found.group(1)) - int(found.group(2))) * 1e-3
+
+
+SIMULATOR_LOCKSTEP = Rig(lambda config: simulator_command(config, "--lockstep"), simulator_reaction_ms, 2.0)
+SIMULATOR_REAL_TIME = Rig(simulator_command, simulator_reaction_ms, 2.0)
+# The host port checks its watchdog every 100 us step of its model (TICK_NS in firmware/host/main.c).
+FIRMWARE_LOCKSTEP = Rig(lambda config: firmware_command(config, lockstep=True), firmware_reaction_ms, 0.1)
+
+
+async def kill_during_balance_and_restart(tmp_path: Path, restarts: int, rig_kind: Rig) -> None:
     config = write_rig_config(tmp_path, KESTREL, extra=FASTER_CART, edits=SETTLING_PIVOT)
+    watchdog_ms = load_config(config).sampling.device_watchdog_ms
     still = hanging_still(config)
     socket_path, db_path, log = tmp_path / "poise.sock", tmp_path / "runs.db", tmp_path / "daemon.log"
-    async with simulator(config, *sim_options) as sim:
+    async with rig_process(rig_kind.command(config)) as rig:
         held = ["device.reset"]  # the freshly powered-up rig's F_RESET
         for _ in range(restarts):
-            daemon = await start_daemon(config, sim, log)
+            daemon = await start_daemon(config, rig, log)
             try:
                 async with await connect(daemon, socket_path, log) as client:
                     await first_status(client, still, "the pendulum to settle", faults_allowed=True)
@@ -240,9 +228,11 @@ async def kill_during_balance_and_restart(tmp_path: Path, restarts: int, *sim_op
             finally:
                 daemon.kill()
                 await daemon.wait()
-            await sim.said("latched F_WATCHDOG")  # the rig cut its motor: no more commands
+            # The rig cut its motor, on its own clock, within its watchdog time of the last command.
+            reaction_ms = rig_kind.reaction_ms(await rig.said("latched F_WATCHDOG"))
+            assert watchdog_ms < reaction_ms <= watchdog_ms + rig_kind.resolution_ms + 1e-6, reaction_ms
             held = ["device.watchdog"]
-        daemon = await start_daemon(config, sim, log)
+        daemon = await start_daemon(config, rig, log)
         try:
             async with await connect(daemon, socket_path, log) as client:
                 await refuses_motion_until_reset(client, held)
@@ -274,7 +264,7 @@ async def test_a_daemon_killed_during_balance_and_restarted_comes_up_faulted_unt
     tmp_path, request
 ):
     restarts = request.config.getoption("--restarts") or LOCKSTEP_RESTARTS
-    await kill_during_balance_and_restart(tmp_path, restarts, "--lockstep")
+    await kill_during_balance_and_restart(tmp_path, restarts, SIMULATOR_LOCKSTEP)
 
 
 @pytest.mark.realtime
@@ -282,4 +272,14 @@ async def test_a_daemon_killed_during_balance_and_restarted_comes_up_faulted_unt
     tmp_path, request
 ):
     restarts = request.config.getoption("--restarts") or REAL_TIME_RESTARTS
-    await kill_during_balance_and_restart(tmp_path, restarts)
+    await kill_during_balance_and_restart(tmp_path, restarts, SIMULATOR_REAL_TIME)
+
+
+async def test_the_reference_firmware_cuts_the_drive_within_its_watchdog_when_the_daemon_is_killed(
+    tmp_path, request
+):
+    """The same kills against the reference firmware's core (its host port, in lockstep): its
+    watchdog zeroes the drive and latches F_WATCHDOG within watchdog_ms on its own clock, and
+    each restarted daemon must clear the latch deliberately."""
+    restarts = request.config.getoption("--restarts") or FIRMWARE_RESTARTS
+    await kill_during_balance_and_restart(tmp_path, restarts, FIRMWARE_LOCKSTEP)

@@ -30,7 +30,8 @@ import sys
 from pathlib import Path
 
 import pytest
-from test_daemon_restart import SimProcess, connect, first_status, simulator, start_daemon
+from rig_processes import RigProcess, rig_process, simulator_command
+from test_daemon_restart import connect, first_status, start_daemon
 from test_daemon_support import KESTREL, write_rig_config
 
 from daemon.recording.store import get_run, open_for_reading
@@ -40,9 +41,9 @@ SENT = re.compile(r"(\d+) since its last Configure")
 BUSY_LOOP = "while True: pass"
 
 
-async def rig_stopped_and_counted(sim: SimProcess) -> int:
+async def rig_stopped_and_counted(sim: RigProcess) -> int:
     """SIGTERM the rig; the Telemetry frames it sent on the test's one link."""
-    line = await sim.stop()
+    line = await sim.stop("simulated rig stopped")
     match = SENT.search(line)
     assert match, line
     return int(match[1])
@@ -66,7 +67,7 @@ async def stream_then_stop(tmp_path: Path, *sim_options: str, home: bool) -> tup
     """(frames the rig sent, the run's summary, its last stored seq) for one daemon life on one link."""
     config = write_rig_config(tmp_path, KESTREL)
     socket_path, db_path, log = tmp_path / "poise.sock", tmp_path / "runs.db", tmp_path / "daemon.log"
-    async with simulator(config, *sim_options) as sim:
+    async with rig_process(simulator_command(config, *sim_options)) as sim:
         daemon = await start_daemon(config, sim, log)
         try:
             async with await connect(daemon, socket_path, log) as client:

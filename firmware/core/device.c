@@ -229,7 +229,8 @@ static void take_sample(poise_device *d, uint64_t t_us)
     t->pendulum_counts = port_pendulum_counts();
     t->switches = (uint8_t)(port_switches() | (d->estop_was_pressed ? SW_ESTOP_BUTTON : 0u));
     t->faults = d->faults;
-    t->status = (uint8_t)(ST_WATCHDOG_ACTIVE | (d->armed ? ST_ARMED : 0u));
+    t->status = (uint8_t)(ST_WATCHDOG_ACTIVE | (d->armed ? ST_ARMED : 0u) |
+                          ((d->id.capabilities & CAP_LOCKSTEP) ? ST_LOCKSTEP : 0u)); /* 8.4 */
     t->drive_applied = d->drive_output;
     t->motor_current_a = (d->id.capabilities & CAP_MOTOR_CURRENT) ? port_motor_current_a() : NAN;
     t->supply_v = (d->id.capabilities & CAP_SUPPLY_VOLTAGE) ? port_supply_v() : NAN;

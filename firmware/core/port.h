@@ -2,7 +2,7 @@
  *
  * A port (one per board, or the Linux host port) implements these functions; the core calls
  * nothing else and never allocates. All functions are called from the core's main context
- * (poise_device_poll / poise_device_tick), never concurrently with each other.
+ * (poise_device_init / poise_device_step), never concurrently with each other.
  *
  * Sign conventions (PROTOCOL.md section 6, Telemetry):
  *   - cart counts are positive toward +x (right, seen from the front) and 0 at power-up;

@@ -1,18 +1,22 @@
 /* The Linux host port: the portable core as a device on a pseudo-terminal, with a small
- * cart-pendulum model behind port.h, paced in real time by clock_nanosleep.
+ * cart-pendulum model behind port.h, paced in real time by clock_nanosleep, or in lockstep with
+ * the host (lockstep=1; PROTOCOL.md section 8.4) so whole sessions run at the host's speed. It
+ * declares CAP_SIMULATED: the physics behind the port is a model. The core is the one a board
+ * runs, unchanged.
  *
  * Usage: poise-fw-host name=value ...   (the rig's values, e.g. from configs/kestrel-1.toml:
  * device_id, sample_rate_hz, cart_counts_per_m, pendulum_counts_per_rev, track_length_m,
  * switch_inset_m, drive_limit, drive_kind (voltage|force), cart_mass_kg, pendulum_mass_kg,
  * com_distance_m, inertia_com_kgm2, cart_viscous, cart_coulomb_n, pivot_viscous, kt,
- * resistance_ohm, gear_ratio, pulley_radius_m, rotor_inertia_kgm2, dead_band).
- * Prints "firmware rig <id> (real time, <rate> Hz) ready: connect to <pty path>" on stdout,
- * then runs until SIGINT/SIGTERM. Every latched fault is logged on stderr with its t_us. */
+ * resistance_ohm, gear_ratio, pulley_radius_m, rotor_inertia_kgm2, dead_band; lockstep 0|1).
+ * Prints "firmware rig <id> (<real time|lockstep>, <rate> Hz) ready: connect to <pty path>" on
+ * stdout, then runs until SIGINT/SIGTERM. Every latched fault is logged on stderr with its t_us. */
 #define _DEFAULT_SOURCE /* cfmakeraw, M_PI on glibc */
 #define _XOPEN_SOURCE 600 /* posix_openpt, grantpt, unlockpt, ptsname */
 #include <errno.h>
 #include <fcntl.h>
 #include <math.h>
+#include <poll.h>
 #include <signal.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -26,22 +30,24 @@
 #include "port.h"
 
 #define TICK_NS 100000L /* 100 us: the model's step and the core's polling period */
+#define LOCKSTEP_GRACE_NS 500000000L /* host silence before lockstep falls back to real time */
 
 static plant rig;
 static int pty_fd = -1;
-static struct timespec power_up;
+static uint64_t model_ticks; /* TICK_NS steps of the model since power-up: the rig's clock */
 static float drive_now;
 static double counts_per_m;
 static unsigned counts_per_rev;
 static volatile sig_atomic_t stopping;
+static int lockstep, free_running;
+static uint16_t faults_seen;
 
-uint64_t port_time_us(void)
-{
-    struct timespec t;
-    clock_gettime(CLOCK_MONOTONIC, &t);
-    return (uint64_t)(t.tv_sec - power_up.tv_sec) * 1000000u +
-           (uint64_t)((t.tv_nsec - power_up.tv_nsec) / 1000 + 0);
-}
+/* The model's time, not the wall clock's: a board's timer and its physics never disagree, and
+ * a sample taken while this process catches up after being descheduled must read the cart where
+ * the model has it at that sample's t_us (a wall-clock t_us let a sample see a model that had
+ * not yet moved, and the host saw the encoder jump). The loop below keeps it in step with real
+ * time whenever the machine lets it. */
+uint64_t port_time_us(void) { return model_ticks * (uint64_t)TICK_NS / 1000u; }
 
 int32_t port_cart_counts(void) { return (int32_t)floor(rig.x * counts_per_m + 0.5); }
 int32_t port_pendulum_counts(void)
@@ -72,7 +78,60 @@ size_t port_serial_write(const uint8_t *buf, size_t n)
     return w > 0 ? (size_t)w : 0;
 }
 
+/* Each fault the core latches, on stderr with the model's t_us and the last time the host fed
+ * the watchdog (so a test reads the watchdog's reaction on the firmware's own clock). */
+static void log_new_faults(const poise_device *d)
+{
+    static const struct { uint16_t bit; const char *name; } names[] = {
+        {F_WATCHDOG, "F_WATCHDOG"}, {F_DRIVER, "F_DRIVER"}, {F_SUPPLY, "F_SUPPLY"},
+        {F_RESET, "F_RESET"}, {F_ESTOP, "F_ESTOP"}};
+    uint16_t fresh = (uint16_t)(d->faults & ~faults_seen);
+    for (size_t i = 0; i < sizeof names / sizeof names[0]; i++)
+        if (fresh & names[i].bit)
+            fprintf(stderr, "firmware latched %s at t_us %llu (host last fed the watchdog at t_us "
+                            "%llu; drive now %g)\n", names[i].name,
+                    (unsigned long long)port_time_us(), (unsigned long long)d->last_feed_us,
+                    (double)drive_now);
+    faults_seen = d->faults;
+}
+
 static void on_signal(int signum) { (void)signum; stopping = 1; }
+
+/* Lockstep (PROTOCOL.md section 8.4): the model stops short of each sample instant until the
+ * Drive answering the previous sample has arrived; after LOCKSTEP_GRACE_NS of host silence the
+ * port paces in real time (so the watchdog trips in device time) until a Drive comes again. */
+static int awaiting_drive(const poise_device *d)
+{
+    return d->configured && d->sample_seq >= 0 && !d->has_pending && !free_running &&
+           port_time_us() + TICK_NS / 1000 >= d->next_sample_us;
+}
+
+static long elapsed_ns(const struct timespec *since)
+{
+    struct timespec now;
+    clock_gettime(CLOCK_MONOTONIC, &now);
+    return (now.tv_sec - since->tv_sec) * 1000000000L + (now.tv_nsec - since->tv_nsec);
+}
+
+/* Read the host's frames (the model's time stands still) until a Drive arrives or the grace
+ * period passes; then real-time pacing resumes from now (next). */
+static void wait_for_host(poise_device *d, struct timespec *next)
+{
+    struct timespec since;
+    clock_gettime(CLOCK_MONOTONIC, &since);
+    while (!stopping && !d->has_pending) {
+        struct pollfd readable = {pty_fd, POLLIN, 0};
+        long left_ns = LOCKSTEP_GRACE_NS - elapsed_ns(&since);
+        if (left_ns <= 0) {
+            free_running = 1;
+            break;
+        }
+        poll(&readable, 1, (int)(left_ns / 1000000L) + 1);
+        poise_device_step(d);
+        log_new_faults(d);
+    }
+    clock_gettime(CLOCK_MONOTONIC, next);
+}
 
 static int set_param(const char *name, const char *value, poise_identity *id, plant_params *p)
 {
@@ -93,6 +152,12 @@ static int set_param(const char *name, const char *value, poise_identity *id, pl
             return 0;
         strcpy(id->device_id, value);
         return 1;
+    }
+    if (strcmp(name, "lockstep") == 0) {
+        lockstep = strcmp(value, "1") == 0;
+        if (lockstep)
+            id->capabilities |= CAP_LOCKSTEP;
+        return lockstep || strcmp(value, "0") == 0;
     }
     if (strcmp(name, "drive_kind") == 0) {
         p->voltage_drive = strcmp(value, "voltage") == 0;
@@ -142,10 +207,9 @@ int main(int argc, char **argv)
 {
     static poise_device dev;
     poise_identity id = {"host-rig", 1, 0, 0, 500, 0, 0, 0, 12.0f, 0,
-                         CAP_LIMIT_SWITCHES, 0.0f, 0.0f};
+                         CAP_LIMIT_SWITCHES | CAP_SIMULATED, 0.0f, 0.0f};
     plant_params p = {0};
     struct timespec next;
-    uint16_t faults_seen;
     p.gravity = 9.81;
     counts_per_m = 40000;
     counts_per_rev = 4096;
@@ -182,27 +246,31 @@ int main(int argc, char **argv)
     signal(SIGINT, on_signal);
     signal(SIGTERM, on_signal);
     plant_init(&rig, &p);
-    clock_gettime(CLOCK_MONOTONIC, &power_up);
+    clock_gettime(CLOCK_MONOTONIC, &next);
     poise_device_init(&dev, &id);
     faults_seen = dev.faults;
-    printf("firmware rig %s (real time, %u Hz) ready: connect to %s\n", id.device_id,
-           id.max_sample_rate_hz, ptsname(pty_fd));
+    printf("firmware rig %s (%s, %u Hz) ready: connect to %s\n", id.device_id,
+           lockstep ? "lockstep" : "real time", id.max_sample_rate_hz, ptsname(pty_fd));
     fflush(stdout);
-    next = power_up;
     while (!stopping) {
-        next.tv_nsec += TICK_NS;
-        if (next.tv_nsec >= 1000000000L) {
-            next.tv_nsec -= 1000000000L;
-            next.tv_sec++;
+        if (free_running && dev.has_pending)
+            free_running = 0; /* the host is back: lockstep again */
+        if (lockstep && awaiting_drive(&dev)) {
+            wait_for_host(&dev, &next);
+            continue;
         }
-        clock_nanosleep(CLOCK_MONOTONIC, TIMER_ABSTIME, &next, NULL);
+        if (!lockstep || free_running) {
+            next.tv_nsec += TICK_NS;
+            if (next.tv_nsec >= 1000000000L) {
+                next.tv_nsec -= 1000000000L;
+                next.tv_sec++;
+            }
+            clock_nanosleep(CLOCK_MONOTONIC, TIMER_ABSTIME, &next, NULL);
+        }
         plant_step(&rig, drive_now, TICK_NS * 1e-9);
+        model_ticks++;
         poise_device_step(&dev);
-        if (dev.faults & ~faults_seen)
-            fprintf(stderr, "firmware latched faults 0x%04x at t_us %llu (drive now %g)\n",
-                    dev.faults & ~faults_seen, (unsigned long long)port_time_us(),
-                    (double)drive_now);
-        faults_seen = dev.faults;
+        log_new_faults(&dev);
     }
     return 0;
 }

@@ -51,6 +51,17 @@ static void accel(const plant_params *p, double f_rest, double b, double v, doub
     *alpha = (mlc * rhs + mt * q_th) / det;
 }
 
+/* Stop the cart at once, as an end stop does: an impulse on the cart alone, so the pendulum keeps
+ * its angular momentum about the pivot, J w - m l cos(th) v (sim_device/plant.py does the same). */
+static void stop_cart(plant *pl)
+{
+    const plant_params *p = &pl->p;
+    double ml = p->pendulum_mass_kg * p->com_distance_m;
+    double jp = p->inertia_com_kgm2 + ml * p->com_distance_m;
+    pl->w -= ml / jp * cos(pl->th) * pl->v;
+    pl->v = 0.0;
+}
+
 void plant_step(plant *pl, double u, double h)
 {
     const plant_params *p = &pl->p;
@@ -69,11 +80,12 @@ void plant_step(plant *pl, double u, double h)
     pl->v = v + h / 6 * (a1 + 2 * a2 + 2 * a3 + a4);
     pl->th = th + h * (w + h / 6 * (l1 + l2 + l3));
     pl->w = w + h / 6 * (l1 + 2 * l2 + 2 * l3 + l4);
-    if ((v0 > 0.0 && pl->v < 0.0) || (v0 < 0.0 && pl->v > 0.0))
-        pl->v = 0.0; /* friction stops the cart; the stick test decides the next step */
+    int reversed = p->cart_coulomb_n > 0.0 && ((v0 > 0.0 && pl->v < 0.0) || (v0 < 0.0 && pl->v > 0.0));
     pl->end_stop = fabs(pl->x) >= half;
-    if (pl->end_stop) {
+    if (fabs(pl->x) > half)
         pl->x = pl->x > 0 ? half : -half;
-        pl->v = 0.0;
-    }
+    /* friction reversed the cart within the step (the stick test decides the next one), or it
+     * runs into an end stop: stop it */
+    if (reversed || (pl->end_stop && pl->v != 0.0 && (pl->v > 0.0) == (pl->x > 0.0)))
+        stop_cart(pl);
 }
