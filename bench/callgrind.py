@@ -15,6 +15,9 @@ does not see the kernel's side of a system call).
     # in the child (run under callgrind): mark(); region 1; mark(); region 2; mark()
     # in the parent:
     totals, stdout = region_instructions([__file__, "--child", "1000"], regions=2)
+
+A native program (the firmware core's bench driver) is counted instead with
+:func:`function_instructions`, which switches counting on only inside one C function.
 """
 
 from __future__ import annotations
@@ -27,7 +30,7 @@ import sys
 import tempfile
 from pathlib import Path
 
-__all__ = ["mark", "region_instructions"]
+__all__ = ["function_instructions", "mark", "region_instructions"]
 
 mark = os.getppid  # callgrind dumps its counts on entering this (see the module docstring)
 
@@ -50,10 +53,32 @@ def region_instructions(child_args: list[str], regions: int) -> tuple[list[int],
             raise SystemExit(f"callgrind run failed:\n{child.stderr[-2000:]}")
         # the main thread's dumps in order: start-up, then one per region, then the rest
         dumps = sorted(glob.glob(f"{out}.*-01"), key=lambda p: int(p.rsplit(".", 1)[1].split("-")[0]))
-        totals = []
-        for path in dumps[1:regions + 1]:
-            match = re.search(r"^(?:summary|totals): (\d+)", Path(path).read_text(), re.MULTILINE)
-            totals.append(int(match.group(1)))
+        totals = [_total(Path(path)) for path in dumps[1:regions + 1]]
     if len(totals) != regions:
         raise SystemExit(f"callgrind run gave {len(totals)} region dumps, expected {regions}")
     return totals, child.stdout
+
+
+def function_instructions(command: list[str], function: str) -> tuple[int, str]:
+    """Run a native program under callgrind: instructions inside ``function`` (and what it calls), and its stdout.
+
+    Counting is switched on only while ``function`` runs (``--toggle-collect``), so what the
+    program does around it is left out. A failed run raises SystemExit with the end of its stderr.
+    """
+    with tempfile.TemporaryDirectory() as folder:
+        out = Path(folder) / "callgrind.out"
+        child = subprocess.run(
+            ["valgrind", "--tool=callgrind", f"--toggle-collect={function}", f"--callgrind-out-file={out}", *command],
+            capture_output=True, text=True, check=False,
+        )
+        if child.returncode != 0:
+            raise SystemExit(f"callgrind run of {command[0]} failed:\n{child.stderr[-2000:]}")
+        return _total(out), child.stdout
+
+
+def _total(dump: Path) -> int:
+    """The instruction total of one callgrind dump file (what callgrind_annotate shows as PROGRAM TOTALS)."""
+    match = re.search(r"^(?:summary|totals): (\d+)", dump.read_text(), re.MULTILINE)
+    if match is None:
+        raise SystemExit(f"callgrind dump {dump} has no instruction total")
+    return int(match.group(1))
