@@ -90,13 +90,16 @@
 #define BOARD_DRIVER_FAULT_ACTIVE 0
 #define BOARD_INPUT_PULL GPIO_PULL_UP
 
-/* ---- The rig, as DeviceHello reports it (PROTOCOL.md section 6) ---- */
-#define BOARD_DEVICE_ID "bench-f401"      /* 1-16 ASCII characters */
+/* ---- The rig, as DeviceHello reports it (PROTOCOL.md section 6) ----
+ * As shipped, the numbers of configs/kestrel-1.toml. The host refuses to arm while counts per
+ * metre or revolution, track length or drive kind disagree with the rig's config, or the
+ * config's drive limit exceeds this one. */
+#define BOARD_DEVICE_ID "kestrel-1"       /* 1-16 ASCII characters; the config's [rig] id */
 #define BOARD_FIRMWARE_MAJOR 1            /* this firmware's version, reported as is */
 #define BOARD_FIRMWARE_MINOR 0
 #define BOARD_FIRMWARE_PATCH 0
 #define BOARD_MAX_SAMPLE_RATE_HZ 1000u
-#define BOARD_CART_COUNTS_PER_M 173852.0f /* the rig's config: [encoders] cart_counts_per_m */
+#define BOARD_CART_COUNTS_PER_M 173852.0f
 #define BOARD_PENDULUM_COUNTS_PER_REV 4096u
 #define BOARD_TRACK_LENGTH_M 0.90f
 #define BOARD_DRIVE_LIMIT_V 12.0f         /* at most BOARD_SUPPLY_V */

@@ -20,8 +20,7 @@ void motor_init(void)
 {
     uint32_t shift = TIM_CCMR_SHIFT(BOARD_MOTOR_CHANNEL);
     pwm_timer = timer_enable(BOARD_MOTOR_TIM);
-    pin_write(BOARD_MOTOR_DIR, 0);
-    pin_setup(BOARD_MOTOR_DIR, GPIO_MODE_OUTPUT, GPIO_PULL_NONE, 0);
+    pin_setup(BOARD_MOTOR_DIR, GPIO_MODE_OUTPUT, GPIO_PULL_NONE, 0); /* low: ODR resets to 0 */
     TIM_PSC(pwm_timer) = 0;
     TIM_ARR(pwm_timer) = PWM_PERIOD - 1u;
     TIM_CCR(pwm_timer, BOARD_MOTOR_CHANNEL) = 0;
