@@ -33,6 +33,8 @@ void reset_handler(void)
     /* The FPU first: the C code below and after is compiled for hard float. */
     CPACR |= CPACR_CP10_CP11_FULL;
     __asm__ volatile("dsb\n\tisb" ::: "memory"); /* PM0214 section 4.6.6 */
+    /* GCC may turn these two loops into memcpy and memset calls: newlib's need neither .data
+     * nor .bss, so that is safe here. */
     for (uint32_t *src = _sidata, *dst = _sdata; dst < _edata;)
         *dst++ = *src++;
     for (uint32_t *dst = _sbss; dst < _ebss;)
