@@ -11,8 +11,8 @@ and does not by itself start motion); after the reset motion is accepted. Each
 killed run must read ``aborted`` in `poise runs`, ending at its last stored
 sample. Lockstep keeps each restart cheap (about 80 s of rig time at many
 times real time): CI runs 5; the same test runs in real time, marked
-``realtime``, once in CI (each life takes over a minute of wall time). Both
-take ``--restarts 20`` for the full trial. The reference firmware's core (its
+``realtime``, once in CI (on a rig without limit switches, so a life is a
+swing-up, not a homing run). Both take ``--restarts 20`` for the full trial. The reference firmware's core (its
 host port, firmware/host, in lockstep) is killed under in the same way, three
 lives in CI: its watchdog's reaction is read from its own log, on its own
 clock, and must fall within watchdog_ms of the last command (plus the 0.1 ms
@@ -28,7 +28,7 @@ import re
 import signal
 import sqlite3
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import pytest
@@ -52,7 +52,7 @@ from daemon.supervisor.prechecks import MOTION_COMMANDS, PrecheckLimits
 # time: CI runs 5 to keep the suite inside its time; `--restarts 20` is the full trial.
 LOCKSTEP_RESTARTS = 5
 FIRMWARE_RESTARTS = 3  # the firmware's lives, in lockstep (the Python simulator's cover the daemon's side)
-# Each real-time life settles, homes and swings up on the wall clock (about a minute), so CI runs
+# Each real-time life settles, homes and swings up on the wall clock (tens of seconds), so CI runs
 # one; `pytest -m realtime tests/test_daemon_restart.py --restarts 20` is the full trial.
 REAL_TIME_RESTARTS = 1
 BALANCE_S = 0.5  # rig time balanced before each kill
@@ -192,6 +192,7 @@ class Rig:
     command: Callable[[Path], list[str]]
     reaction_ms: Callable[[str], float]  # from its "latched F_WATCHDOG" line: ms since the last feed
     resolution_ms: float  # how often it checks its watchdog
+    edits: dict[str, str] = field(default_factory=dict)  # to the test's rig config
 
 
 def simulator_reaction_ms(line: str) -> float:
@@ -206,13 +207,15 @@ def firmware_reaction_ms(line: str) -> float:
 
 
 SIMULATOR_LOCKSTEP = Rig(lambda config: simulator_command(config, "--lockstep"), simulator_reaction_ms, 2.0)
-SIMULATOR_REAL_TIME = Rig(simulator_command, simulator_reaction_ms, 2.0)
+# In real time this rig has no limit switches, so homing takes the present position as the centre
+# and each life is a swing-up, not a half-minute homing run (the real-time sessions home in full).
+SIMULATOR_REAL_TIME = Rig(simulator_command, simulator_reaction_ms, 2.0, {"has_limit_switches": "false"})
 # The host port checks its watchdog every 100 us step of its model (TICK_NS in firmware/host/main.c).
 FIRMWARE_LOCKSTEP = Rig(lambda config: firmware_command(config, lockstep=True), firmware_reaction_ms, 0.1)
 
 
 async def kill_during_balance_and_restart(tmp_path: Path, restarts: int, rig_kind: Rig) -> None:
-    config = write_rig_config(tmp_path, KESTREL, extra=FASTER_CART, edits=SETTLING_PIVOT)
+    config = write_rig_config(tmp_path, KESTREL, extra=FASTER_CART, edits=SETTLING_PIVOT | rig_kind.edits)
     watchdog_ms = load_config(config).sampling.device_watchdog_ms
     still = hanging_still(config)
     socket_path, db_path, log = tmp_path / "poise.sock", tmp_path / "runs.db", tmp_path / "daemon.log"
