@@ -57,6 +57,7 @@ FIRST_TELEMETRY_S = 5.0  # section 8.1: the host gives up after 5 s without tele
 LATE_WINDOW = 40  # samples in the late-command window
 LATE_EVERY = 5  # one deliberately late Drive every this many samples of the window
 LATE_ATTEMPTS = 3
+WATCHDOG_GIVE_UP_MS = 100  # device time past the allowed trip after which it never will
 HOLD_SAMPLES = 5  # samples watched after Arm, disarm and Stop
 LOCKSTEP_SLACK_S = 1.5  # a lockstep device free-runs after its grace period (section 8.4)
 UNKNOWN_TYPE_ID = 0x7E
@@ -280,14 +281,15 @@ class Scenario:
                          "bad CRC, version 2 and must-understand flag frames dropped unanswered")
         # section 2: an oversize run, empty frames and a broken frame, then a good frame
         start = probe.mark()
-        probe.write(b"\x55" * 300 + b"\x00" + b"\x00\x00" + encode(Identify(0x0107))[:4] + b"\x00")
-        good = await self.command(Identify(0x0106))
+        stream = (b"\x55" * 300 + b"\x00" + encode(Identify(0x0106)) + b"\x00\x00"
+                  + encode(Identify(0x0107))[:4] + b"\x00")
+        good = await probe.command_raw(IDENTIFY, 0x0106, stream)
         broken = [m for m in probe.messages(DeviceHello, start) if m.seq == 0x0107]
         report.check("resync", good is not None and not broken,
-                     "Identify after a 300-byte run without 0x00, empty frames and a cut frame answered"
+                     "Identify right after a 300-byte run without 0x00 answered, empty frames and a cut frame ignored"
                      if good is not None and not broken else
                      "a cut frame was answered" if broken else
-                     "Identify after a 300-byte run without 0x00 and empty frames not answered")
+                     "Identify right after a 300-byte run without 0x00 not answered")
         found = await probe.command_raw(UNKNOWN_TYPE_ID, 0x0BAD, raw_frame(UNKNOWN_TYPE_ID, 0x0BAD))
         self._rejection("unknown_type", found, ReplyResult.UNKNOWN_TYPE, "type 0x7E seq 0x0BAD")
         found = await probe.command_raw(Stop.TYPE_ID, 0x0BAE, raw_frame(Stop.TYPE_ID, 0x0BAE, b"\x00"))
@@ -519,13 +521,24 @@ class Scenario:
         start = probe.mark()
         probe.answer = answer
         pings = asyncio.create_task(probe.beat(Identify, self.wd_ms / 3000))
-        found = await probe.wait_for(lambda m: type(m) is Telemetry and m.faults & F_WATCHDOG,
-                                     self.wall_s(self.wd_ms / 1000 + 0.1), start)
+        tolerance_ms = watchdog_tolerance_ms(self.period_us)
+        give_up_ms = self.wd_ms + tolerance_ms + WATCHDOG_GIVE_UP_MS
+
+        def tripped_or_overdue(m: Message) -> bool:
+            if type(m) is not Telemetry or "final" not in state:
+                return False
+            if m.faults & F_WATCHDOG:
+                return True
+            final_at = probe.by_seq[state["final"]].t_us
+            return m.t_us - final_at > give_up_ms * 1000
+
+        found = await probe.wait_for(tripped_or_overdue, self.wall_s(give_up_ms / 1000), start)
         pings.cancel()
-        if found is None:
+        if found is None or not found[1].faults & F_WATCHDOG:
             probe.answer = lambda t: 0.0
-            report.fail("watchdog", f"no F_WATCHDOG within {self.wall_s(self.wd_ms / 1000 + 0.1):.1f} s "
-                        f"of host time after the last Drive (watchdog_ms {self.wd_ms})")
+            report.fail("watchdog", f"no F_WATCHDOG within {give_up_ms:.0f} ms of device time after "
+                        f"the last Drive (watchdog_ms {self.wd_ms})")
+            await self.command(probe.numbered(Stop))
             return False
         report_msg = await probe.wait_for(lambda m: type(m) is FaultReport and m.code & F_WATCHDOG,
                                           0.5, start)
@@ -535,7 +548,6 @@ class Scenario:
         arrival = next((t for t in telemetry if t.seq > state["final"] and f32(t.drive_applied) == final), None)
         ref_seq = arrival.seq - 1 if arrival else state["final"]
         reference = probe.by_seq.get(ref_seq & 0xFFFF)
-        tolerance_ms = watchdog_tolerance_ms(self.period_us)
         latency_ms = (tripped.t_us - reference.t_us) / 1000
         in_time = self.wd_ms <= latency_ms <= self.wd_ms + tolerance_ms
         stopped = tripped.drive_applied == 0 and not tripped.status & ST_ARMED

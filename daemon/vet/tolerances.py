@@ -4,7 +4,7 @@ RATE_TOLERANCE = 0.05  # section 8.5: interlocks.prearm_rate_tolerance, per 0.1 
 JITTER_FRACTION = 0.5  # section 8.5: jitter of "a fraction of a period" is accepted (p99)
 LINK_TIMEOUT_US = 30_000  # section 8.5: interlocks.link_timeout_ms default (or 3 periods)
 CLOCK_TOLERANCE = 0.2  # t_us against the host's monotonic clock, over the whole run
-CLOCK_MIN_SPAN_S = 1.0  # shortest host time the device clock is compared over
+CLOCK_MIN_SPAN_S = 0.5  # shortest host time the device clock is compared over
 APPLY_WITHIN = 20  # samples a Drive may take to show in drive_applied
 WATCHDOG_SLACK_MS = 1.0  # the device's own check granularity, on top of two sample periods
 
