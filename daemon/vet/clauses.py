@@ -2,7 +2,8 @@
 
 Each clause collects facts (what was measured) and failures; it passes when it has facts and
 no failure, fails on any failure, and is skipped only when the device's state made it
-impossible to check (the reason is printed). A clause left unchecked fails.
+impossible to check, or because the run was abandoned after a clause failed (the reason is
+printed). A clause left unchecked for no reason fails.
 """
 
 from __future__ import annotations
@@ -86,8 +87,10 @@ class Report:
                 verdict, text = "PASS", "; ".join(finding.facts)
             elif finding.skipped is not None:
                 verdict, text = "SKIP", finding.skipped
+            elif self.not_run is not None:
+                verdict, text = "SKIP", f"not run: {self.not_run}"
             else:
-                verdict, text = "FAIL", f"not checked ({self.not_run or 'no observation'})"
+                verdict, text = "FAIL", "not checked"
             result.append(Outcome(key, verdict, f"{verdict} §{section} {name}: {text}"))
         return result
 

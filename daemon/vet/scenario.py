@@ -101,6 +101,8 @@ class Scenario:
         self.configured_before = False
         self.arm_faulted_done = False
         self.eps = 0.0
+        self.frame_probe_identify: set[int] = set()
+        self.trip: tuple[int, Telemetry, int] | None = None  # watchdog trip: log index, sample, phase start
 
     # ------------------------------------------------------------------ helpers
 
@@ -204,6 +206,8 @@ class Scenario:
             await self.reconfigure()
         except Abandon as reason:
             self.report.not_run = str(reason)
+        except OSError as exc:
+            self.report.not_run = f"the port failed: {exc.strerror or exc}"
         finally:
             self.probe.answer = None
         judge_log(self)
@@ -215,7 +219,7 @@ class Scenario:
         identify = probe.numbered(Identify)
         found = await self.command(identify)
         if found is None:
-            stray = [m for m in probe.messages(DeviceHello, start) if m.seq != 0xFFFF]
+            stray = probe.messages(DeviceHello, start)  # wrong seq: carry on with its fields
             if not stray:
                 counters = probe.decoder.counters
                 if counters.bad_version:
@@ -224,7 +228,8 @@ class Scenario:
                 report.fail("hello_seq", f"no DeviceHello answered Identify seq {identify.seq}{hint}")
                 raise Abandon("no DeviceHello")
             hello = stray[0]
-            report.fail("hello_seq", f"DeviceHello answering Identify seq {identify.seq} carried seq {hello.seq}")
+            report.fail("hello_seq", f"Identify seq {identify.seq} answered only by DeviceHello "
+                        f"seq 0x{hello.seq:04X}")
         else:
             hello = found[1]
         self.hello = hello
@@ -263,6 +268,7 @@ class Scenario:
             0x0102: ("version 2", raw_frame(IDENTIFY, 0x0102, version=2)),
             0x0103: ("must-understand flag 0x01", raw_frame(IDENTIFY, 0x0103, flags=0x01)),
         }
+        self.frame_probe_identify = set(dropped) | {0x0104, 0x0105, 0x0106, 0x0107}  # judged here
         for _name, frame in dropped.values():
             probe.write(frame)
         sentinel = await probe.command_raw(IDENTIFY, 0x0104, raw_frame(IDENTIFY, 0x0104, flags=0x10))
