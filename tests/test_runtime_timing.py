@@ -2,10 +2,18 @@
 
 import math
 
+import numpy as np
 import pytest
 from test_daemon_support import recorded_samples, run_for, running_service
 
-from daemon.runtime.timing import RING_MASK, RING_SAMPLES, STAGE_SAMPLE_MASK, STAGES, TimingRings
+from daemon.runtime.timing import (
+    RING_MASK,
+    RING_SAMPLES,
+    STAGE_SAMPLE_MASK,
+    STAGES,
+    TimingRings,
+    percentile,
+)
 
 
 def store(rings: TimingRings, start_ns: int, costs_ns: tuple[int, ...]) -> None:
@@ -15,6 +23,15 @@ def store(rings: TimingRings, start_ns: int, costs_ns: tuple[int, ...]) -> None:
         readings.append(readings[-1] + cost)
     rings.stamps[rings.count & RING_MASK] = tuple(readings)
     rings.count += 1
+
+
+@pytest.mark.parametrize("n", [1, 2, 3, 5, 10, 101, 515, 1000])
+@pytest.mark.parametrize("fraction", [0.5, 0.9, 0.99, 0.999, 1.0])
+def test_percentile_is_the_nearest_rank_one(n, fraction):
+    # Nearest rank is definition 1 of R. J. Hyndman and Y. Fan, "Sample quantiles in statistical
+    # packages", The American Statistician 50(4), 1996; NumPy's method="inverted_cdf" is that one.
+    values = sorted(float(v) for v in np.random.default_rng(n).normal(size=n))
+    assert percentile(values, fraction) == np.quantile(values, fraction, method="inverted_cdf")
 
 
 def test_stage_costs_and_latency_are_the_differences_of_the_readings():

@@ -38,12 +38,19 @@ _COMPUTE_END = STAGES.index("encode") + 1  # compute: from the first reading to 
 _NAN = float("nan")
 
 
+def _rank_index(n: int, fraction: float) -> int:
+    """The nearest-rank index, ``ceil(fraction n) - 1`` (Hyndman and Fan 1996, definition 1).
+
+    (``round`` in its place took banker's rounding: the median of five values was the second.)
+    The product is rounded to 9 places first, so that 0.999 * 1000 = 999.0000000000001 is 999."""
+    return min(n - 1, max(0, math.ceil(round(fraction * n, 9)) - 1))
+
+
 def percentile(sorted_values: list[float], fraction: float) -> float:
     """Nearest-rank percentile of already sorted values (nan when empty)."""
     if not sorted_values:
         return _NAN
-    index = min(len(sorted_values) - 1, max(0, round(fraction * len(sorted_values)) - 1))
-    return sorted_values[index]
+    return sorted_values[_rank_index(len(sorted_values), fraction)]
 
 
 def _rank(sorted_array: np.ndarray, fraction: float) -> float:
@@ -51,7 +58,7 @@ def _rank(sorted_array: np.ndarray, fraction: float) -> float:
     n = len(sorted_array)
     if n == 0:
         return _NAN
-    return float(sorted_array[min(n - 1, max(0, round(fraction * n) - 1))])
+    return float(sorted_array[_rank_index(n, fraction)])
 
 
 @dataclass(frozen=True, slots=True)

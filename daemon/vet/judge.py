@@ -10,10 +10,10 @@ import itertools
 import math
 from typing import TYPE_CHECKING
 
+from daemon.runtime.timing import percentile
 from daemon.vet.timing import (
     interval_deviations_us,
     largest_gap_us,
-    percentile,
     window_rates,
 )
 from daemon.vet.tolerances import (
@@ -164,7 +164,7 @@ def _rate_and_jitter(run: Scenario, streams) -> None:
                             f"{limit / 1000:.0f} ms, section 8.5)")
     if not measured:
         run.report.fail("rate", "no stream lasted one 0.1 s window of t_us")
-    p99 = percentile(deviations_fraction, 0.99)
+    p99 = percentile(sorted(deviations_fraction), 0.99)
     if not math.isnan(p99):
         run.report.check("jitter", p99 <= JITTER_FRACTION and worst_gap_ok,
                          f"p99 of |t_us interval - period| {p99 * 100:.1f} % of a period over "

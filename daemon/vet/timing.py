@@ -7,7 +7,6 @@ the order received, so they measure what the device did, not when the host read 
 from __future__ import annotations
 
 import itertools
-import math
 import struct
 from collections.abc import Sequence
 
@@ -47,12 +46,3 @@ def interval_deviations_us(samples: Sequence[tuple[int, int]], period_us: float)
 def largest_gap_us(samples: Sequence[tuple[int, int]]) -> int:
     """The longest t_us interval between consecutive received samples (0 if fewer than two)."""
     return max((t1 - t0 for (_s0, t0), (_s1, t1) in itertools.pairwise(samples)), default=0)
-
-
-def percentile(values: Sequence[float], fraction: float) -> float:
-    """The nearest-rank percentile (fraction 0.99 for p99); NaN for no values."""
-    if not values:
-        return math.nan
-    ordered = sorted(values)
-    rank = max(1, math.ceil(fraction * len(ordered)))
-    return ordered[rank - 1]
