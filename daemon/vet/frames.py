@@ -7,11 +7,9 @@ sections 3 and 7) needs the header and CRC under its own control.
 
 from __future__ import annotations
 
-from binascii import crc_hqx
-
 from cobs import cobs
 
-from protocol.crc import CRC_INIT
+from protocol.crc import crc16
 from protocol.layout import CRC, HEADER
 from protocol.messages import PROTOCOL_VERSION
 
@@ -27,5 +25,5 @@ def raw_frame(
 ) -> bytes:
     """COBS(header | payload | CRC) 0x00, the CRC XORed with ``crc_xor`` (non-zero: a bad CRC)."""
     body = HEADER.pack(version, flags, type_id, seq) + payload
-    crc = crc_hqx(body, CRC_INIT) ^ crc_xor
+    crc = crc16(body) ^ crc_xor
     return cobs.encode(body + CRC.pack(crc)) + b"\x00"
