@@ -17,6 +17,7 @@ from collections.abc import Callable
 from daemon.link import Port
 from protocol import (
     DeviceHello,
+    Drive,
     FrameDecoder,
     Identify,
     Message,
@@ -74,7 +75,7 @@ class Probe:
         return make(self.next_seq(make(0).TYPE_ID))
 
     def drive(self, value: float, answers_seq: int) -> None:
-        self.write(encode_drive(self.next_seq(0x12), value, answers_seq & 0xFFFF))
+        self.write(encode_drive(self.next_seq(Drive.TYPE_ID), value, answers_seq & 0xFFFF))
 
     def send_acked(self, message: Message) -> None:
         self.sent_acked[(message.TYPE_ID, message.seq)] += 1
