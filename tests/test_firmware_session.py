@@ -12,8 +12,10 @@ from __future__ import annotations
 
 import asyncio
 import json
+import subprocess
 
 import pytest
+from firmware_support import build_host_port
 from rig_processes import POISE, firmware_command, rig_process
 from session_checks import assert_balanced_with_every_sample_recorded
 from test_daemon_support import KESTREL, WREN, write_rig_config
@@ -38,3 +40,20 @@ async def test_a_session_against_the_reference_firmware_balances_with_every_samp
     assert_balanced_with_every_sample_recorded(summary, BALANCE_S)
     assert summary["samples_unanswered"] == 0  # lockstep: the rig waits for every answer
     assert 0.0 < summary["swing_up_s"] < 60.0
+
+
+@pytest.mark.parametrize(
+    ("bad", "says"),
+    [
+        ("lockstep=2", "argument 1: bad or unknown lockstep=2"),
+        ("cart_mass_kg=heavy", "argument 1: bad or unknown cart_mass_kg=heavy"),
+        ("colour=red", "argument 1: bad or unknown colour=red"),
+        ("sample_rate_hz", "argument 1 'sample_rate_hz' is not name=value"),
+    ],
+)
+def test_a_bad_host_port_argument_is_one_line_naming_it_and_exit_2(bad, says):
+    result = subprocess.run(
+        [str(build_host_port()), bad], capture_output=True, text=True, timeout=30, check=False
+    )
+    assert result.returncode == 2 and result.stdout == ""  # no pty offered
+    assert result.stderr == f"poise-fw-host: {says}\n"
